@@ -1,0 +1,25 @@
+# Every target builds .venv on first use, so each works as the first command on a fresh machine.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench clean
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+	$(BIN)/python -m pip install -q -e '.[test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/sortition demo --out demo-output
+
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	$(BIN)/python -m tests.bench
+
+clean:
+	rm -rf $(VENV) demo-output .pytest_cache .hypothesis

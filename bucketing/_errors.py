@@ -1,0 +1,37 @@
+"""Errors a service can catch: one base class, one for configs that cannot be used."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+class SortitionError(Exception):
+    """Base of every error this package raises on purpose."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a config, located in its source file."""
+
+    rule: str
+    severity: str  # "error" or "warning"
+    file: str
+    line: int
+    column: int
+    path: str
+    message: str
+
+    def __str__(self) -> str:
+        where = f"{self.file}:{self.line}:{self.column}"
+        field = f" {self.path}:" if self.path else ""
+        return f"{where}:{field} {self.message} [{self.rule}]"
+
+
+class ConfigError(SortitionError):
+    """A config could not be loaded; `problems` lists every error found, located."""
+
+    def __init__(self, problems: list[Problem]):
+        self.problems = list(problems)
+        first = str(self.problems[0]) if self.problems else "invalid config"
+        more = len(self.problems) - 1
+        super().__init__(first + (f" (and {more} more)" if more > 0 else ""))

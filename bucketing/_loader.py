@@ -1,0 +1,311 @@
+"""Reading config files: safe YAML with node marks, pydantic validation, merging.
+
+Every error is located: file, line and column come from the YAML node marks,
+kept for each field path while the document is turned into plain values.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from datetime import date, datetime
+from pathlib import Path
+from typing import Any, Iterable
+
+import yaml
+from pydantic import ValidationError
+
+from ._errors import ConfigError, Problem
+from ._model import ConfigFile, Holdout, Layer
+
+MAX_FILE_BYTES = 5 * 1024 * 1024
+MAX_NODES = 200_000
+MAX_ALIASES = 1_000
+CONFIG_SUFFIXES = (".yaml", ".yml")
+
+PathKey = tuple[Any, ...]
+
+
+def format_path(path: Iterable[Any]) -> str:
+    """('layers', 0, 'arms', 1, 'weight') -> 'layers[0].arms[1].weight'."""
+    out = ""
+    for part in path:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+@dataclass
+class _Document:
+    """One file: its plain data and the mark (line, column) of every path in it."""
+
+    file: str
+    data: Any = None
+    marks: dict[PathKey, tuple[int, int]] = field(default_factory=dict)
+
+    def locate(self, path: PathKey) -> tuple[int, int]:
+        for cut in range(len(path), -1, -1):
+            mark = self.marks.get(tuple(path[:cut]))
+            if mark is not None:
+                return mark
+        return (1, 1)
+
+    def problem(self, rule: str, path: PathKey, message: str, severity: str = "error") -> Problem:
+        line, column = self.locate(path)
+        return Problem(rule, severity, self.file, line, column, format_path(path), message)
+
+
+class _LimitedLoader(yaml.SafeLoader):
+    """SafeLoader: no object construction. Limits are enforced by `_to_plain`."""
+
+
+def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
+    seen: set[int] = set()
+    counts = {"nodes": 0, "aliases": 0}
+
+    def convert(node: yaml.Node, path: PathKey) -> Any:
+        counts["nodes"] += 1
+        if id(node) in seen:
+            counts["aliases"] += 1
+        seen.add(id(node))
+        if counts["nodes"] > MAX_NODES or counts["aliases"] > MAX_ALIASES:
+            raise ConfigError([doc.problem("yaml-limits", path,
+                f"document too large after expanding aliases (more than {MAX_NODES} nodes "
+                f"or {MAX_ALIASES} alias uses); write it out without anchors")])
+        doc.marks.setdefault(path, (node.start_mark.line + 1, node.start_mark.column + 1))
+        if isinstance(node, yaml.MappingNode):
+            loader.flatten_mapping(node)
+            result: dict[Any, Any] = {}
+            for key_node, value_node in node.value:
+                key = loader.construct_object(key_node, deep=True)
+                if not isinstance(key, (str, int, float, bool)) or key is None:
+                    raise ConfigError([doc.problem("schema", path, f"mapping key must be a plain scalar, found {key!r}")])
+                key = str(key) if not isinstance(key, str) else key
+                child = path + (key,)
+                doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
+                if key in result:
+                    raise ConfigError([doc.problem("yaml-duplicate-key", child,
+                        f"key {key!r} appears twice in the same mapping; keep one")])
+                result[key] = convert(value_node, child)
+            return result
+        if isinstance(node, yaml.SequenceNode):
+            return [convert(item, path + (i,)) for i, item in enumerate(node.value)]
+        return loader.construct_object(node, deep=True)
+
+    return convert(node, ())
+
+
+def _read_document(path: Path, text: str | None = None) -> _Document:
+    doc = _Document(file=str(path))
+    if text is None:
+        try:
+            size = path.stat().st_size
+            if size > MAX_FILE_BYTES:
+                raise ConfigError([doc.problem("yaml-limits", (), f"file is {size} bytes; the limit is {MAX_FILE_BYTES}")])
+            text = path.read_text(encoding="utf-8")
+        except UnicodeDecodeError as exc:
+            raise ConfigError([doc.problem("file-unreadable", (), f"not UTF-8 text ({exc.reason})")]) from None
+        except OSError as exc:
+            raise ConfigError([doc.problem("file-unreadable", (), exc.strerror or str(exc))]) from None
+    loader = _LimitedLoader(text)
+    try:
+        node = loader.get_single_node()
+        doc.data = None if node is None else _to_plain(doc, loader, node)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line, column = (mark.line + 1, mark.column + 1) if mark else (1, 1)
+        message = " ".join(str(p) for p in (exc.context, exc.problem) if p)
+        raise ConfigError([Problem("yaml-syntax", "error", doc.file, line, column, "", message)]) from None
+    except yaml.YAMLError as exc:
+        raise ConfigError([doc.problem("yaml-syntax", (), str(exc).splitlines()[0])]) from None
+    finally:
+        loader.dispose()
+    return doc
+
+
+def _schema_problems(doc: _Document, exc: ValidationError) -> list[Problem]:
+    problems = []
+    for error in exc.errors(include_url=False):
+        loc = tuple(error["loc"])
+        message = error["msg"]
+        if error["type"] == "extra_forbidden":
+            message = f"unknown key {loc[-1]!r}"
+        elif error["type"] == "missing":
+            message = f"required key {loc[-1]!r} is missing"
+        elif "input" in error and not isinstance(error["input"], (dict, list)):
+            message = f"{message}; found {error['input']!r}"
+        problems.append(doc.problem("schema", loc, message))
+    return problems
+
+
+def _canonical_value(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {str(k): _canonical_value(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_canonical_value(v) for v in value]
+    if isinstance(value, (date, datetime)):
+        return value.isoformat()
+    return value
+
+
+def config_version(documents: Iterable[Any]) -> str:
+    """Config version id: first 12 hex digits of SHA-256 of the canonical JSON.
+
+    The canonical form merges the files' plain data: `format`, `holdout`
+    entries sorted by unit type, `layers` sorted by name, `weekly_units`
+    merged; dates become ISO strings; keys sorted, no whitespace, UTF-8.
+    It does not depend on key order, comments, quoting or how layers are
+    spread over files.
+    """
+    merged: dict[str, Any] = {"format": 1, "holdout": [], "layers": [], "weekly_units": {}}
+    for data in documents:
+        merged["holdout"].extend(data.get("holdout") or [])
+        merged["layers"].extend(data.get("layers") or [])
+        merged["weekly_units"].update(data.get("weekly_units") or {})
+    merged["holdout"].sort(key=lambda h: str(h.get("unit")))
+    merged["layers"].sort(key=lambda layer: str(layer.get("name")))
+    if not merged["weekly_units"]:
+        del merged["weekly_units"]
+    if not merged["holdout"]:
+        del merged["holdout"]
+    text = json.dumps(_canonical_value(merged), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
+
+
+@dataclass(frozen=True)
+class Origin:
+    """Where a merged element came from: its document and its path there."""
+
+    document: _Document
+    path: PathKey
+
+
+@dataclass(frozen=True, eq=False)
+class Config:
+    """A validated, merged config. `locate` maps a merged path to file, line, column."""
+
+    layers: tuple[Layer, ...]
+    holdouts: tuple[Holdout, ...]
+    weekly_units: dict[str, int]
+    version: str
+    files: tuple[str, ...]
+    _layer_origins: tuple[Origin, ...] = field(repr=False, default=())
+    _holdout_origins: tuple[Origin, ...] = field(repr=False, default=())
+    _weekly_origins: dict[str, Origin] = field(repr=False, default_factory=dict)
+
+    def origin(self, path: PathKey) -> tuple[_Document, PathKey]:
+        head = path[0] if path else None
+        if head == "layers" and len(path) > 1:
+            o = self._layer_origins[path[1]]
+            return o.document, o.path + tuple(path[2:])
+        if head == "holdout" and len(path) > 1:
+            o = self._holdout_origins[path[1]]
+            return o.document, o.path + tuple(path[2:])
+        if head == "weekly_units" and len(path) > 1 and path[1] in self._weekly_origins:
+            o = self._weekly_origins[path[1]]
+            return o.document, o.path + tuple(path[2:])
+        first = (self._layer_origins or self._holdout_origins)
+        document = first[0].document if first else _Document(file=self.files[0] if self.files else "<config>")
+        return document, tuple(path)
+
+    def locate(self, path: PathKey) -> tuple[str, int, int]:
+        document, local = self.origin(path)
+        line, column = document.locate(local)
+        return document.file, line, column
+
+    def problem(self, rule: str, path: PathKey, message: str, severity: str = "error") -> Problem:
+        document, local = self.origin(path)
+        return document.problem(rule, local, message, severity)
+
+    def layer(self, name: str) -> Layer | None:
+        return next((layer for layer in self.layers if layer.name == name), None)
+
+
+def config_files(path: Path) -> list[Path]:
+    """The YAML files a path names: itself, or a directory's *.yaml/*.yml in name order."""
+    if path.is_dir():
+        return sorted(p for p in path.rglob("*") if p.is_file() and p.suffix in CONFIG_SUFFIXES)
+    return [path]
+
+
+def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None = None) -> tuple[Config | None, list[Problem]]:
+    """Read and merge config files without raising: (config or None, problems).
+
+    Problems include schema errors and, once the files parse, every rule of
+    `_rules.structural_problems` (errors and warnings alike).
+    """
+    from ._rules import structural_problems
+
+    sources = [source] if isinstance(source, (str, Path)) else list(source)
+    paths: list[Path] = []
+    for s in sources:
+        p = Path(s)
+        if text is None and not p.exists():
+            return None, [Problem("file-unreadable", "error", str(p), 1, 1, "", "no such file or directory")]
+        paths.extend(config_files(p) if text is None else [p])
+    if not paths:
+        return None, [Problem("file-unreadable", "error", str(sources[0]), 1, 1, "", "no .yaml or .yml files found")]
+
+    problems: list[Problem] = []
+    documents: list[tuple[_Document, ConfigFile]] = []
+    for p in paths:
+        try:
+            doc = _read_document(p, text)
+        except ConfigError as exc:
+            problems.extend(exc.problems)
+            continue
+        if not isinstance(doc.data, dict):
+            problems.append(doc.problem("schema", (), "a config file is a mapping with `format: 1` and `layers`"))
+            continue
+        try:
+            documents.append((doc, ConfigFile.model_validate(doc.data)))
+        except ValidationError as exc:
+            problems.extend(_schema_problems(doc, exc))
+    if problems:
+        return None, problems
+
+    layers, layer_origins, holdouts, holdout_origins = [], [], [], []
+    weekly: dict[str, int] = {}
+    weekly_origins: dict[str, Origin] = {}
+    for doc, parsed in documents:
+        for i, layer in enumerate(parsed.layers):
+            layers.append(layer)
+            layer_origins.append(Origin(doc, ("layers", i)))
+        for i, holdout in enumerate(parsed.holdout):
+            holdouts.append(holdout)
+            holdout_origins.append(Origin(doc, ("holdout", i)))
+        for unit_type, count in parsed.weekly_units.items():
+            if unit_type in weekly:
+                problems.append(doc.problem("name-duplicate", ("weekly_units", unit_type),
+                    f"weekly_units for {unit_type!r} is also given in {weekly_origins[unit_type].document.file}; keep one"))
+            weekly[unit_type] = count
+            weekly_origins[unit_type] = Origin(doc, ("weekly_units", unit_type))
+    config = Config(
+        layers=tuple(layers),
+        holdouts=tuple(holdouts),
+        weekly_units=weekly,
+        version=config_version(doc.data for doc, _ in documents),
+        files=tuple(str(p) for p in paths),
+        _layer_origins=tuple(layer_origins),
+        _holdout_origins=tuple(holdout_origins),
+        _weekly_origins=weekly_origins,
+    )
+    problems.extend(structural_problems(config))
+    return config, problems
+
+
+def load_config(source: str | Path | Iterable[str | Path], *, text: str | None = None) -> Config:
+    """Load, validate and merge a config file, a directory, or several of them.
+
+    Raises ConfigError (every error located by file, line and column) when
+    the config cannot be used; warnings do not stop loading. With `text`,
+    the YAML is taken from that string and `source` only names it.
+    """
+    config, problems = parse_config(source, text=text)
+    errors = [p for p in problems if p.severity == "error"]
+    if errors or config is None:
+        raise ConfigError(errors or problems)
+    return config

@@ -1,0 +1,128 @@
+"""The config format as pydantic models: types, ranges and unknown keys.
+
+Rules that look across several fields (overlapping ranges, weights that sum
+to 100, salts used twice, ...) live in `_rules.py`, so that the SDK and the
+`check` command share one implementation of each.
+"""
+
+from __future__ import annotations
+
+import re
+from datetime import date
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
+
+NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]*$"
+SALT_PATTERN = r"^[A-Za-z0-9_.-]+$"
+RANGE_PATTERN = r"^\s*\d+\s*(-\s*\d+\s*)?$"
+CONDITION_PATTERN = re.compile(r"^\s*(>=|<=|==|!=|>|<)\s*(\S+)\s*$")
+
+STATUSES = ("draft", "running", "paused", "done")
+
+
+def _iso_date(value: Any) -> Any:
+    if isinstance(value, str):
+        try:
+            return date.fromisoformat(value)
+        except ValueError:
+            raise ValueError(f"expected an ISO date such as 2026-11-03, found {value!r}") from None
+    return value
+
+
+Name = Annotated[str, Field(pattern=NAME_PATTERN, max_length=200)]
+Salt = Annotated[str, Field(pattern=SALT_PATTERN, max_length=200)]
+IsoDate = Annotated[date, BeforeValidator(_iso_date)]
+Number = Annotated[float, Field(allow_inf_nan=False)]
+AttributeValue = str | int | float | bool
+Condition = list[AttributeValue] | str
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
+
+
+class Waiver(_Strict):
+    """Turns one `check` rule off for one experiment, with the reason on record."""
+
+    rule: Annotated[str, Field(min_length=1)]
+    reason: Annotated[str, Field(min_length=1)]
+
+
+class Arm(_Strict):
+    name: Name
+    weight: Number
+    params: dict[str, Any] = Field(default_factory=dict)
+
+
+class Experiment(_Strict):
+    name: Name
+    status: Literal["draft", "running", "paused", "done"]
+    buckets: list[Annotated[str, Field(pattern=RANGE_PATTERN)]] = Field(min_length=1)
+    salt: Salt | None = None
+    arms: list[Arm] = Field(min_length=1)
+    eligible: dict[str, Condition] = Field(default_factory=dict)
+    overrides: dict[str, str] = Field(default_factory=dict)
+    start: IsoDate | None = None
+    end: IsoDate | None = None
+    owner: str | None = None
+    unit: Name | None = Field(default=None, description="Unit type; when given it must equal the layer's.")
+    waivers: list[Waiver] = Field(default_factory=list, description="check rules turned off for this experiment.")
+    reassign_ok: str | None = Field(
+        default=None,
+        description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
+    )
+
+
+class Layer(_Strict):
+    name: Name
+    unit: Name
+    salt: Salt | None = None
+    experiments: list[Experiment] = Field(default_factory=list)
+
+    @property
+    def effective_salt(self) -> str:
+        return self.salt if self.salt is not None else self.name
+
+
+class Holdout(_Strict):
+    unit: Name
+    salt: Salt
+    percent: Annotated[Number, Field(gt=0, lt=100)]
+
+
+class ConfigFile(_Strict):
+    """One YAML file of the config format (`format: 1`)."""
+
+    format: Literal[1]
+    holdout: list[Holdout] = Field(default_factory=list)
+    layers: list[Layer] = Field(default_factory=list)
+    weekly_units: dict[str, Annotated[int, Field(ge=0)]] = Field(
+        default_factory=dict,
+        description="Expected distinct units per week, per unit type; used by `check` to flag arms too small.",
+    )
+
+
+def experiment_salt(layer: Layer, experiment: Experiment) -> str:
+    """An experiment's salt: its own, or '<layer salt>.<experiment name>' by default."""
+    return experiment.salt if experiment.salt is not None else f"{layer.effective_salt}.{experiment.name}"
+
+
+def parse_range(text: str) -> tuple[int, int]:
+    """'0-1999' -> (0, 1999); '42' -> (42, 42). Bounds are not checked here."""
+    low, _, high = text.partition("-")
+    return int(low), int(high) if high.strip() else int(low)
+
+
+def hundredths(value: float) -> int | None:
+    """A percentage in hundredths of a percent, or None when it has more than two decimals."""
+    scaled = round(value * 100)
+    return scaled if abs(value * 100 - scaled) < 1e-6 else None
+
+
+def parse_version(text: str) -> tuple[int, ...] | None:
+    """'7.2.1' -> (7, 2, 1); None when the text is not a dotted version of integers."""
+    parts = text.strip().lstrip("vV").split(".")
+    if not parts or not all(p.isdigit() for p in parts):
+        return None
+    return tuple(int(p) for p in parts)

@@ -1,0 +1,142 @@
+"""A config compiled for the hot path: lookup tables built once, when it loads.
+
+Each layer gets a 10,000-entry table from bucket to experiment, each
+experiment its arm thresholds and compiled eligibility, each unit type its
+holdout threshold. Assigning then costs a few hashes and list lookups.
+"""
+
+from __future__ import annotations
+
+import operator
+from collections import Counter
+from datetime import date
+from typing import Any, Callable
+
+from ._hashing import BUCKETS
+from ._loader import Config
+from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_range, parse_version
+
+EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
+
+_COMPARISONS: dict[str, Callable[[Any, Any], bool]] = {
+    ">=": operator.ge, ">": operator.gt, "<=": operator.le, "<": operator.lt, "==": operator.eq, "!=": operator.ne,
+}
+
+
+def attribute_text(value: Any) -> str:
+    """How an attribute or an eligibility value is compared: booleans as true/false, numbers in decimal."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def version_key(text: str) -> tuple[int, ...] | None:
+    """A dotted version for comparison, trailing zeros dropped so that 7.2 == 7.2.0."""
+    parts = parse_version(text)
+    if parts is None:
+        return None
+    parts = list(parts)
+    while len(parts) > 1 and parts[-1] == 0:
+        parts.pop()
+    return tuple(parts)
+
+
+class Condition:
+    """One compiled `eligible` entry."""
+
+    __slots__ = ("attr", "values", "compare", "version")
+
+    def __init__(self, attr: str, spec: Any) -> None:
+        self.attr = attr
+        self.values: frozenset[str] | None = None
+        self.compare = None
+        self.version = None
+        if isinstance(spec, list):
+            self.values = frozenset(attribute_text(v) for v in spec)
+        else:
+            match = CONDITION_PATTERN.match(spec)
+            assert match is not None, "validated by _rules.condition-syntax"
+            self.compare = _COMPARISONS[match.group(1)]
+            self.version = version_key(match.group(2))
+
+    def holds(self, attrs: dict[str, Any], errors: Counter) -> bool:
+        value = attrs.get(self.attr)
+        if value is None:
+            return False
+        if self.values is not None:
+            return attribute_text(value) in self.values
+        if isinstance(value, bool) or not isinstance(value, (str, int, float)):
+            errors["attribute_type"] += 1
+            return False
+        version = version_key(attribute_text(value))
+        if version is None:
+            errors["attribute_version"] += 1
+            return False
+        return self.compare(version, self.version)
+
+
+class ExperimentPlan:
+    __slots__ = ("name", "layer", "prefix", "thresholds", "arms", "arm_params", "running",
+                 "first_day", "last_day", "conditions", "windowed")
+
+    def __init__(self, layer_name: str, layer, exp) -> None:
+        self.name = exp.name
+        self.layer = layer_name
+        self.prefix = experiment_salt(layer, exp) + ":"
+        edges, total = [], 0
+        for arm in exp.arms:
+            total += hundredths(arm.weight)
+            edges.append(total)
+        self.thresholds = tuple(edges)
+        self.arms = tuple(arm.name for arm in exp.arms)
+        self.arm_params = tuple(dict(arm.params) for arm in exp.arms)
+        self.running = exp.status == "running"
+        self.first_day = exp.start.toordinal() - EPOCH_ORDINAL if exp.start else None
+        self.last_day = exp.end.toordinal() - EPOCH_ORDINAL if exp.end else None
+        self.windowed = self.first_day is not None or self.last_day is not None
+        self.conditions = tuple(Condition(attr, spec) for attr, spec in exp.eligible.items())
+
+
+class LayerPlan:
+    __slots__ = ("name", "unit_type", "prefix", "table", "forced")
+
+    def __init__(self, layer) -> None:
+        self.name = layer.name
+        self.unit_type = layer.unit
+        self.prefix = layer.effective_salt + ":"
+        table: list[ExperimentPlan | None] = [None] * BUCKETS
+        self.forced: dict[str, tuple[ExperimentPlan, int]] = {}
+        for exp in layer.experiments:
+            plan = ExperimentPlan(layer.name, layer, exp)
+            for text in exp.buckets:
+                low, high = parse_range(text)
+                table[low:high + 1] = [plan] * (high - low + 1)
+            if plan.running:
+                for unit, arm in exp.overrides.items():
+                    self.forced.setdefault(unit, (plan, plan.arms.index(arm)))
+        self.table = table
+
+
+class Plan:
+    """Everything `Assigner.assign` reads, immutable once built."""
+
+    __slots__ = ("config", "version", "layers", "layers_by_type", "holdouts", "param_owner")
+
+    def __init__(self, config: Config) -> None:
+        self.config = config
+        self.version = config.version
+        self.layers = tuple(LayerPlan(layer) for layer in config.layers)
+        by_type: dict[str, list[LayerPlan]] = {}
+        for layer in self.layers:
+            by_type.setdefault(layer.unit_type, []).append(layer)
+        self.layers_by_type = {t: tuple(ls) for t, ls in by_type.items()}
+        self.holdouts = {h.unit: (h.salt + ":", hundredths(h.percent)) for h in config.holdouts}
+        self.param_owner = {
+            name: layer.name
+            for layer in config.layers
+            for exp in layer.experiments
+            for arm in exp.arms
+            for name in arm.params
+        }
