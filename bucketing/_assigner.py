@@ -9,6 +9,7 @@ default experience and a counter in `Assigner.errors` goes up.
 from __future__ import annotations
 
 import threading
+from bisect import bisect_right
 from collections import Counter, OrderedDict
 from datetime import date
 from pathlib import Path
@@ -23,6 +24,8 @@ from ._loader import Config, load_config
 from ._plan import EPOCH_ORDINAL, Plan
 
 _hash = mmh3.hash
+_NO_ATTRS: Mapping[str, Any] = {}
+_NOBODY: frozenset[str] = frozenset()
 
 
 class LayerAssignment(NamedTuple):
@@ -37,23 +40,53 @@ class LayerAssignment(NamedTuple):
 
 
 class Assignment:
-    """A unit's experiments and arms in every layer of its unit types, and the merged parameters.
+    """A unit's experiments and arms in every layer of its unit types, and its parameters.
 
     Reading a parameter with `param` records an exposure for the layer that
-    owns it (once per Assignment); `expose` records one explicitly.
+    owns it (once per Assignment); `expose` records one explicitly. The
+    per-layer view (`layers`) and the merged `params` are built on first use,
+    which keeps `assign` itself cheap.
     """
 
-    __slots__ = ("units", "attrs", "held_out", "layers", "params", "config", "_exposer", "_exposed")
+    __slots__ = ("units", "attrs", "held_out", "_plan", "_slots", "_layers", "_params", "_exposer", "_exposed")
 
-    def __init__(self, units, attrs, held_out, layers, params, config, exposer) -> None:
+    def __init__(self, units, attrs, held_out, plan, slots, exposer) -> None:
         self.units: dict[str, str] = units
-        self.attrs: dict[str, Any] = attrs
+        self.attrs: Mapping[str, Any] = attrs
         self.held_out: frozenset[str] = held_out
-        self.layers: dict[str, LayerAssignment] = layers
-        self.params: dict[str, Any] = params
-        self.config: str = config
+        self._plan: Plan | None = plan
+        self._slots: dict[str, tuple] = slots  # layer -> (unit_type, unit, experiment plan, arm index, bucket, forced)
+        self._layers: dict[str, LayerAssignment] | None = None
+        self._params: dict[str, Any] | None = None
         self._exposer: _Exposer | None = exposer
         self._exposed: set[str] | None = None
+
+    @property
+    def config(self) -> str | None:
+        """Version id of the config that made this assignment."""
+        return self._plan.version if self._plan is not None else None
+
+    @property
+    def layers(self) -> dict[str, LayerAssignment]:
+        """Layer name -> what that layer gives the unit, for every layer of the unit's types."""
+        if self._layers is None:
+            self._layers = {
+                layer: LayerAssignment(unit_type, unit, exp.name if exp else None,
+                                       exp.arms[index] if exp else None, bucket, forced)
+                for layer, (unit_type, unit, exp, index, bucket, forced) in self._slots.items()
+            }
+        return self._layers
+
+    @property
+    def params(self) -> dict[str, Any]:
+        """Every parameter the unit's arms set, merged across layers (a parameter belongs to one layer)."""
+        if self._params is None:
+            merged: dict[str, Any] = {}
+            for _, _, exp, index, _, _ in self._slots.values():
+                if exp is not None:
+                    merged.update(exp.arm_params[index])
+            self._params = merged
+        return self._params
 
     @property
     def holdout(self) -> bool:
@@ -62,19 +95,22 @@ class Assignment:
 
     def param(self, name: str, default: Any = None) -> Any:
         """The parameter's value for this unit, or `default`; records the exposure of its layer."""
-        if name not in self.params:
+        layer = self._plan.param_owner.get(name) if self._plan is not None else None
+        slot = self._slots.get(layer) if layer is not None else None
+        if slot is None or slot[2] is None:
+            return default
+        values = slot[2].arm_params[slot[3]]
+        if name not in values:
             return default
         if self._exposer is not None:
-            layer = self._exposer.plan_owner(name)
-            if layer is not None:
-                self.expose(layer)
-        return self.params[name]
+            self.expose(layer)
+        return values[name]
 
     def expose(self, layer: str | None = None) -> None:
         """Record an exposure for `layer`, or for every layer that gave the unit an experiment."""
         if self._exposer is None:
             return
-        names = [layer] if layer is not None else list(self.layers)
+        names = [layer] if layer is not None else list(self._slots)
         for name in names:
             got = self.layers.get(name)
             if got is None or got.experiment is None:
@@ -87,8 +123,9 @@ class Assignment:
             self._exposer.emit(self, name, got)
 
     def arm(self, layer: str) -> str | None:
-        got = self.layers.get(layer)
-        return got.arm if got is not None else None
+        """The unit's arm in `layer`, or None."""
+        slot = self._slots.get(layer)
+        return slot[2].arms[slot[3]] if slot is not None and slot[2] is not None else None
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON shape of `sortition assign`."""
@@ -118,9 +155,6 @@ class _Exposer:
         self.dedupe_limit = dedupe_limit
         self._seen: OrderedDict[tuple, None] = OrderedDict()
         self._lock = threading.Lock()
-
-    def plan_owner(self, name: str) -> str | None:
-        return self.assigner._plan.param_owner.get(name)
 
     def emit(self, assignment: Assignment, layer: str, got: LayerAssignment) -> None:
         if self.dedupe:
@@ -192,7 +226,7 @@ class Assigner:
             return self._assign(plan, units, attrs, None if day is None else day.toordinal() - EPOCH_ORDINAL)
         except Exception:
             self.errors["unit"] += 1
-            return Assignment({}, {}, frozenset(), {}, {}, plan.version, None)
+            return Assignment({}, _NO_ATTRS, _NOBODY, plan, {}, None)
 
     def assign_many(self, unit_type: str, ids: Iterable[str | int],
                     attrs: Iterable[Mapping[str, Any] | None] | None = None, *,
@@ -211,61 +245,41 @@ class Assigner:
                 yield self._assign(plan, {unit_type: unit}, unit_attrs, today, expose=False)
             except Exception:
                 self.errors["unit"] += 1
-                yield Assignment({}, {}, frozenset(), {}, {}, plan.version, None)
+                yield Assignment({}, _NO_ATTRS, _NOBODY, plan, {}, None)
 
     def _assign(self, plan: Plan, units: Mapping[str, str | int], attrs: Mapping[str, Any] | None,
                 today: int | None, expose: bool = True) -> Assignment:
-        attrs = dict(attrs) if attrs else {}
+        attrs = attrs if attrs is not None else _NO_ATTRS
         ids: dict[str, str] = {}
-        layers: dict[str, LayerAssignment] = {}
-        params: dict[str, Any] = {}
-        held: list[str] = []
-        errors = self.errors
-        for unit_type, raw in units.items():
-            try:
-                uid = unit_key(raw)
-            except TypeError:
-                errors["unit_id"] += 1
-                continue
-            ids[unit_type] = uid
-            type_layers = plan.layers_by_type.get(unit_type)
-            if not type_layers:
-                continue
-            holdout = plan.holdouts.get(unit_type)
-            out = holdout is not None and _hash(holdout[0] + uid, 0, False) % BUCKETS < holdout[1]
-            if out:
-                held.append(unit_type)
-            for layer in type_layers:
-                bucket = _hash(layer.prefix + uid, 0, False) % BUCKETS
-                forced = layer.forced.get(uid) if layer.forced else None
-                if forced is not None:
-                    exp, index = forced
-                    layers[layer.name] = LayerAssignment(unit_type, uid, exp.name, exp.arms[index], bucket, True)
-                    params.update(exp.arm_params[index])
+        slots: dict[str, tuple] = {}
+        held = _NOBODY
+        for unit_type, uid in units.items():
+            if type(uid) is not str:
+                try:
+                    uid = unit_key(uid)
+                except TypeError:
+                    self.errors["unit_id"] += 1
                     continue
-                exp = None if out else layer.table[bucket]
-                if exp is not None and exp.running:
-                    if exp.windowed:
-                        if today is None:
-                            today = int(time() // 86400)
-                        if (exp.first_day is not None and today < exp.first_day) or \
-                                (exp.last_day is not None and today > exp.last_day):
-                            exp = None
-                    if exp is not None and exp.conditions:
-                        for condition in exp.conditions:
-                            if not condition.holds(attrs, errors):
-                                exp = None
-                                break
-                    if exp is not None:
-                        arm_bucket = _hash(exp.prefix + uid, 0, False) % BUCKETS
-                        index = 0
-                        for edge in exp.thresholds:
-                            if arm_bucket < edge:
-                                break
-                            index += 1
-                        layers[layer.name] = LayerAssignment(unit_type, uid, exp.name, exp.arms[index], bucket, False)
-                        params.update(exp.arm_params[index])
+            ids[unit_type] = uid
+            hot = plan.hot.get(unit_type)
+            if hot is None:
+                continue
+            holdout_prefix, holdout_below, type_layers = hot
+            out = holdout_prefix is not None and _hash(holdout_prefix + uid, 0, False) % BUCKETS < holdout_below
+            if out:
+                held = held | {unit_type}
+            for name, prefix, live, forced_units in type_layers:
+                bucket = _hash(prefix + uid, 0, False) % BUCKETS
+                if forced_units:
+                    forced = forced_units.get(uid)
+                    if forced is not None:
+                        exp, index = forced
+                        slots[name] = (unit_type, uid, exp, index, bucket, True)
                         continue
-                layers[layer.name] = LayerAssignment(unit_type, uid, None, None, bucket, False)
-        return Assignment(ids, attrs, frozenset(held), layers, params, plan.version,
-                          self._exposer if expose else None)
+                exp = None if out else live[bucket]
+                if exp is not None and (not exp.gated or exp.admits(attrs, today, self.errors)):
+                    index = bisect_right(exp.thresholds, _hash(exp.prefix + uid, 0, False) % BUCKETS)
+                    slots[name] = (unit_type, uid, exp, index, bucket, False)
+                else:
+                    slots[name] = (unit_type, uid, None, 0, bucket, False)
+        return Assignment(ids, attrs, held, plan, slots, self._exposer if expose else None)

@@ -25,6 +25,7 @@ MAX_ALIASES = 1_000
 CONFIG_SUFFIXES = (".yaml", ".yml")
 
 PathKey = tuple[Any, ...]
+_PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
 
 
 def format_path(path: Iterable[Any]) -> str:
@@ -76,11 +77,13 @@ def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
                 f"document too large after expanding aliases (more than {MAX_NODES} nodes "
                 f"or {MAX_ALIASES} alias uses); write it out without anchors")])
         doc.marks.setdefault(path, (node.start_mark.line + 1, node.start_mark.column + 1))
+        if not isinstance(node, yaml.ScalarNode) and node.tag not in _PLAIN_TAGS:
+            raise ConfigError([doc.problem("yaml-syntax", path, f"tag {node.tag!r} is not allowed; configs are plain YAML")])
         if isinstance(node, yaml.MappingNode):
             loader.flatten_mapping(node)
             result: dict[Any, Any] = {}
             for key_node, value_node in node.value:
-                key = loader.construct_object(key_node, deep=True)
+                key = scalar(key_node, path)
                 if not isinstance(key, (str, int, float, bool)) or key is None:
                     raise ConfigError([doc.problem("schema", path, f"mapping key must be a plain scalar, found {key!r}")])
                 key = str(key) if not isinstance(key, str) else key
@@ -93,7 +96,17 @@ def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
             return result
         if isinstance(node, yaml.SequenceNode):
             return [convert(item, path + (i,)) for i, item in enumerate(node.value)]
-        return loader.construct_object(node, deep=True)
+        return scalar(node, path)
+
+    def scalar(node: yaml.Node, path: PathKey) -> Any:
+        if not isinstance(node, yaml.ScalarNode):
+            raise ConfigError([doc.problem("schema", path, "mapping keys must be plain scalars")])
+        try:
+            return loader.construct_object(node, deep=True)
+        except yaml.constructor.ConstructorError as exc:
+            raise ConfigError([doc.problem("yaml-syntax", path, str(exc.problem))]) from None
+        except ValueError as exc:
+            raise ConfigError([doc.problem("schema", path, f"{node.value!r} is not a valid {node.tag.rsplit(':', 1)[-1]}: {exc}")]) from None
 
     return convert(node, ())
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import operator
 from collections import Counter
 from datetime import date
+from time import time
 from typing import Any, Callable
 
 from ._hashing import BUCKETS
@@ -79,7 +80,7 @@ class Condition:
 
 class ExperimentPlan:
     __slots__ = ("name", "layer", "prefix", "thresholds", "arms", "arm_params", "running",
-                 "first_day", "last_day", "conditions", "windowed")
+                 "first_day", "last_day", "conditions", "gated")
 
     def __init__(self, layer_name: str, layer, exp) -> None:
         self.name = exp.name
@@ -95,12 +96,25 @@ class ExperimentPlan:
         self.running = exp.status == "running"
         self.first_day = exp.start.toordinal() - EPOCH_ORDINAL if exp.start else None
         self.last_day = exp.end.toordinal() - EPOCH_ORDINAL if exp.end else None
-        self.windowed = self.first_day is not None or self.last_day is not None
         self.conditions = tuple(Condition(attr, spec) for attr, spec in exp.eligible.items())
+        self.gated = self.first_day is not None or self.last_day is not None or bool(self.conditions)
+
+    def admits(self, attrs: dict[str, Any], today: int | None, errors: Counter) -> bool:
+        """Whether the date window (today: days since 1970-01-01 UTC) and eligibility let the unit in."""
+        if self.first_day is not None or self.last_day is not None:
+            if today is None:
+                today = int(time() // 86400)
+            if (self.first_day is not None and today < self.first_day) or \
+                    (self.last_day is not None and today > self.last_day):
+                return False
+        for condition in self.conditions:
+            if not condition.holds(attrs, errors):
+                return False
+        return True
 
 
 class LayerPlan:
-    __slots__ = ("name", "unit_type", "prefix", "table", "forced")
+    __slots__ = ("name", "unit_type", "prefix", "table", "live", "forced")
 
     def __init__(self, layer) -> None:
         self.name = layer.name
@@ -117,12 +131,13 @@ class LayerPlan:
                 for unit, arm in exp.overrides.items():
                     self.forced.setdefault(unit, (plan, plan.arms.index(arm)))
         self.table = table
+        self.live = [plan if plan is not None and plan.running else None for plan in table]
 
 
 class Plan:
     """Everything `Assigner.assign` reads, immutable once built."""
 
-    __slots__ = ("config", "version", "layers", "layers_by_type", "holdouts", "param_owner")
+    __slots__ = ("config", "version", "layers", "layers_by_type", "hot", "holdouts", "param_owner")
 
     def __init__(self, config: Config) -> None:
         self.config = config
@@ -133,6 +148,12 @@ class Plan:
             by_type.setdefault(layer.unit_type, []).append(layer)
         self.layers_by_type = {t: tuple(ls) for t, ls in by_type.items()}
         self.holdouts = {h.unit: (h.salt + ":", hundredths(h.percent)) for h in config.holdouts}
+        # What `assign` reads per unit type, as plain tuples: (holdout salt prefix or None,
+        # holdout threshold, ((layer name, salt prefix, bucket -> running experiment, forced units), ...)).
+        self.hot = {
+            t: (*self.holdouts.get(t, (None, 0)), tuple((lp.name, lp.prefix, lp.live, lp.forced) for lp in ls))
+            for t, ls in by_type.items()
+        }
         self.param_owner = {
             name: layer.name
             for layer in config.layers

@@ -129,7 +129,10 @@ def _salts(config: Config) -> Iterator[tuple[str, tuple, str]]:
     first: dict[str, tuple[tuple, str]] = {}
     for salt, path, user in salt_uses(config):
         if salt in first:
-            file, line, _ = config.locate(first[salt][0])
+            earlier = first[salt][0]
+            if path[-1] == earlier[-1] == "name" and len(path) == len(earlier):
+                continue  # two default salts of the same kind collide only through a duplicate name, reported already
+            file, line, _ = config.locate(earlier)
             yield ("salt-reused", path,
                    f"salt {salt!r} of {user} is already used by {first[salt][1]} ({file}:{line}); "
                    "shared salts correlate assignments: give each a salt of its own")
