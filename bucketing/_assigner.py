@@ -254,10 +254,10 @@ class Assigner:
         slots: dict[str, tuple] = {}
         held = _NOBODY
         for unit_type, uid in units.items():
-            if type(uid) is not str:
+            if type(uid) is not str or not uid.isascii():
                 try:
                     uid = unit_key(uid)
-                except TypeError:
+                except (TypeError, ValueError):
                     self.errors["unit_id"] += 1
                     continue
             ids[unit_type] = uid

@@ -116,7 +116,7 @@ class ExperimentPlan:
 class LayerPlan:
     __slots__ = ("name", "unit_type", "prefix", "table", "live", "forced")
 
-    def __init__(self, layer) -> None:
+    def __init__(self, layer, pins: dict[str, tuple[str, str]]) -> None:
         self.name = layer.name
         self.unit_type = layer.unit
         self.prefix = layer.effective_salt + ":"
@@ -130,6 +130,9 @@ class LayerPlan:
             if plan.running:
                 for unit, arm in exp.overrides.items():
                     self.forced.setdefault(unit, (plan, plan.arms.index(arm)))
+            for unit, (experiment, arm) in pins.items():
+                if experiment == exp.name:
+                    self.forced[unit] = (plan, plan.arms.index(arm))
         self.table = table
         self.live = [plan if plan is not None and plan.running else None for plan in table]
 
@@ -137,12 +140,14 @@ class LayerPlan:
 class Plan:
     """Everything `Assigner.assign` reads, immutable once built."""
 
-    __slots__ = ("config", "version", "layers", "layers_by_type", "hot", "holdouts", "param_owner")
+    __slots__ = ("config", "version", "pins", "layers", "layers_by_type", "hot", "holdouts", "param_owner")
 
-    def __init__(self, config: Config) -> None:
+    def __init__(self, config: Config, pins: dict[str, dict[str, tuple[str, str]]] | None = None) -> None:
+        """`pins`: layer -> unit -> (experiment, arm), forced whatever the status (bucketing.testing)."""
         self.config = config
         self.version = config.version
-        self.layers = tuple(LayerPlan(layer) for layer in config.layers)
+        self.pins = pins or {}
+        self.layers = tuple(LayerPlan(layer, self.pins.get(layer.name, {})) for layer in config.layers)
         by_type: dict[str, list[LayerPlan]] = {}
         for layer in self.layers:
             by_type.setdefault(layer.unit_type, []).append(layer)

@@ -8,13 +8,12 @@
             assert render_home(assigner, "L-1").banner == "6-minute lessons"
 
 A pin behaves like an override in the config (the assignment is marked
-forced) and is gone when the block ends. It replaces the assigner's plan for
-the duration, so it costs nothing on the hot path.
+forced) and is gone when the block ends. It swaps in a plan built with the
+pin for the duration, so it costs nothing on the hot path.
 """
 
 from __future__ import annotations
 
-import copy
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator, Mapping
@@ -22,39 +21,29 @@ from typing import Iterator, Mapping
 from ._assigner import Assigner
 from ._exposure import ExposureSink, MemorySink
 from ._loader import load_config
-from ._plan import ExperimentPlan, LayerPlan, Plan
+from ._plan import Plan
 
 __all__ = ["pinned", "assigner_from_yaml", "MemorySink"]
 
 
-def _experiment(layer: LayerPlan, name: str) -> ExperimentPlan:
-    for plan in layer.table:
-        if plan is not None and plan.name == name:
-            return plan
-    raise KeyError(f"layer {layer.name!r} has no experiment {name!r}")
-
-
 @contextmanager
 def pinned(assigner: Assigner, units: Mapping[str, str], *, layer: str, experiment: str, arm: str) -> Iterator[None]:
-    """Within the block, the unit gets `experiment`/`arm` in `layer`, whatever its buckets."""
+    """Within the block, the unit gets `experiment`/`arm` in `layer`, whatever its buckets or status."""
     original = assigner._plan
-    target = next((lp for lp in original.layers if lp.name == layer), None)
+    target = original.config.layer(layer)
     if target is None:
         raise KeyError(f"config has no layer {layer!r}")
-    exp = _experiment(target, experiment)
-    if arm not in exp.arms:
-        raise KeyError(f"experiment {experiment!r} has no arm {arm!r}; arms: {list(exp.arms)}")
-    unit = units.get(target.unit_type)
+    exp = next((e for e in target.experiments if e.name == experiment), None)
+    if exp is None:
+        raise KeyError(f"layer {layer!r} has no experiment {experiment!r}")
+    if arm not in [a.name for a in exp.arms]:
+        raise KeyError(f"experiment {experiment!r} has no arm {arm!r}; arms: {[a.name for a in exp.arms]}")
+    unit = units.get(target.unit)
     if unit is None:
-        raise KeyError(f"layer {layer!r} assigns unit type {target.unit_type!r}; pass its id")
-    replacement = copy.copy(target)
-    replacement.forced = {**target.forced, str(unit): (exp, exp.arms.index(arm))}
-    plan = copy.copy(original)
-    plan.layers = tuple(replacement if lp is target else lp for lp in original.layers)
-    plan.layers_by_type = {
-        t: tuple(replacement if lp is target else lp for lp in ls) for t, ls in original.layers_by_type.items()
-    }
-    assigner._plan = plan
+        raise KeyError(f"layer {layer!r} assigns unit type {target.unit!r}; pass its id")
+    pins = {name: dict(by_unit) for name, by_unit in original.pins.items()}
+    pins.setdefault(layer, {})[str(unit)] = (experiment, arm)
+    assigner._plan = Plan(original.config, pins)
     try:
         yield
     finally:
