@@ -150,6 +150,8 @@ def _schema_problems(doc: _Document, exc: ValidationError) -> list[Problem]:
             message = f"required key {loc[-1]!r} is missing"
         elif "input" in error and not isinstance(error["input"], (dict, list)):
             message = f"{message}; found {error['input']!r}"
+            if error["type"] in ("float_type", "int_type") and isinstance(error["input"], str):
+                message += " (write the number without quotes)"
         problems.append(doc.problem("schema", loc, message))
     return problems
 
