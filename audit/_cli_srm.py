@@ -2,8 +2,136 @@
 
 from __future__ import annotations
 
+import shutil
+import sys
+import tempfile
+import time
+from enum import Enum
+from pathlib import Path
+from typing import Optional
+
 import typer
+
+from bucketing import load_config
+
+from ._cli import fail, guarded
+from ._logs import LogError, parse_column_map
+from ._stats import DEFAULT_THRESHOLD
+from ._srm import DEFAULT_REPLAY_UNITS, audit_logs, parse_expectation, parse_terms
+from ._srm_model import AuditResult
+
+
+class SrmFormat(str, Enum):
+    text = "text"
+    json = "json"
+    html = "html"
+
+
+class _StderrProgress:
+    """Stage names on stderr; a moving bar when stderr is a terminal."""
+
+    def __init__(self) -> None:
+        self.live = sys.stderr.isatty()
+        self.started: dict[str, float] = {}
+
+    def __call__(self, label: str, fraction: float) -> None:
+        first = label not in self.started
+        self.started.setdefault(label, time.perf_counter())
+        if fraction >= 1.0:
+            elapsed = time.perf_counter() - self.started.pop(label)
+            if elapsed >= 0.5 or self.live:
+                sys.stderr.write(f"\r{label}: done in {elapsed:.1f} s{' ' * 20}\n")
+        elif self.live:
+            filled = int(fraction * 30)
+            sys.stderr.write(f"\r{label}: [{'#' * filled}{'.' * (30 - filled)}] {fraction:5.0%}")
+        elif first:
+            sys.stderr.write(f"{label}...\n")
+        sys.stderr.flush()
+
+
+def render(result: AuditResult, fmt: str) -> str:
+    """The audit in one of the formats of `--format`."""
+    if fmt == "json":
+        from ._report_json import render_json
+        return render_json(result)
+    if fmt == "html":
+        from ._report_html import render_html
+        return render_html(result)
+    from ._report_text import render_text
+    return render_text(result)
+
+
+def exit_code(result: AuditResult, strict: bool) -> int:
+    """0 when every split matches its design, 1 on any SRM, 2 when --strict and records were malformed."""
+    if strict and result.malformed.total:
+        first = result.malformed.examples[0] if result.malformed.examples else None
+        where = f"{first.file}:{first.line}: " if first and first.line else (f"{first.file}: " if first else "")
+        fail(f"{where}{first.detail if first else 'malformed record'} "
+             f"({result.malformed.total} malformed record(s); --strict stops on the first kind)")
+    return 1 if result.any_srm else 0
+
+
+def _stdin_to_file(directory: str) -> str:
+    path = Path(directory) / "stdin.jsonl"
+    with open(path, "wb") as out:
+        shutil.copyfileobj(sys.stdin.buffer, out)
+    return str(path)
 
 
 def register(app: typer.Typer) -> None:
-    """Add this module's subcommands to the app."""
+    @app.command(
+        "srm",
+        epilog="Example: sortition srm logs/ --config configs_example --by country,platform,app_version "
+        "--format html --out srm.html   (exit 0: no mismatch, 1: mismatch, 2: unreadable input)",
+    )
+    def srm(
+        logs: list[str] = typer.Argument(..., help="Log files, globs or directories (.jsonl, .csv, .tsv, .parquet, "
+                                                   "plain or .gz); '-' reads JSON Lines from stdin."),
+        config: Optional[Path] = typer.Option(None, "--config", help="Config file or directory: expected shares, "
+                                                                     "date windows, and the arm replay."),
+        config_versions: Optional[Path] = typer.Option(None, "--config-versions", help="Directory of past config "
+            "versions (one YAML file or subdirectory each); records are replayed under the version they name."),
+        by: Optional[str] = typer.Option(None, "--by", help="Segment attributes, comma-separated; join with + to "
+                                                            "test combinations, e.g. country,platform+app_version."),
+        column: list[str] = typer.Option([], "--column", help="FIELD=LOG_COLUMN when the logs use other names, "
+                                                              "e.g. --column unit=user_id --column arm=variant."),
+        expect: Optional[str] = typer.Option(None, "--expect", help="Expected split when there is no config "
+                                             "(or to override it): 50,50 (arms in name order) or control=50,short=50."),
+        threshold: float = typer.Option(DEFAULT_THRESHOLD, "--threshold", help="p-value below which a split is a "
+                                        "mismatch (default 0.0005, per Fabijan et al., KDD 2019)."),
+        fmt: SrmFormat = typer.Option(SrmFormat.text, "--format", help="text, json or html."),
+        out: Optional[Path] = typer.Option(None, "--out", help="Write the report to this file instead of stdout."),
+        strict: bool = typer.Option(False, "--strict", help="Exit 2 if any record is malformed."),
+        replay_units: int = typer.Option(DEFAULT_REPLAY_UNITS, "--replay-units", help="Units per experiment whose "
+                                         "arm is recomputed from the config (a fixed random sample); 0 for all."),
+        log_format: Optional[str] = typer.Option(None, "--log-format", help="jsonl, csv, tsv or parquet, for "
+                                                 "files whose name does not say."),
+        quiet: bool = typer.Option(False, "--quiet", help="No progress on stderr."),
+    ) -> None:
+        """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
+
+        def run() -> int:
+            if not 0 < threshold < 1:
+                fail(f"--threshold must be between 0 and 1, found {threshold}")
+            if log_format is not None and log_format not in ("jsonl", "csv", "tsv", "parquet"):
+                fail(f"--log-format must be jsonl, csv, tsv or parquet, found {log_format!r}")
+            loaded = load_config(config) if config is not None else None
+            with tempfile.TemporaryDirectory(prefix="sortition-srm-") as scratch:
+                sources = [_stdin_to_file(scratch) if s == "-" else s for s in logs]
+                try:
+                    result = audit_logs(
+                        sources, config=loaded, expectation=parse_expectation(expect) if expect else None,
+                        terms=parse_terms(by), columns=parse_column_map(column), threshold=threshold,
+                        versions=config_versions, replay_units=replay_units, log_format=log_format,
+                        progress=None if quiet else _StderrProgress())
+                except LogError as exc:
+                    fail(str(exc))
+            report = render(result, fmt.value)
+            if out is not None:
+                out.write_text(report, encoding="utf-8")
+                typer.echo(f"wrote {out}", err=True)
+            else:
+                sys.stdout.write(report)
+            return exit_code(result, strict)
+
+        guarded(run)
