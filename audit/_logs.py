@@ -198,6 +198,7 @@ class LogScan:
         return ", ".join(select)
 
     def _jsonl_select(self, group: list[LogFile]) -> str:
+        self.present.update(RECORD_FIELDS)  # JSON Lines have no header: any field may be there
         names = [self.columns[n] for n in RECORD_FIELDS] + self.attributes
         paths = "[" + ", ".join(_sql_text('$."' + n.replace('"', '\\"') + '"') for n in names) + "]"
         index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in self.attributes])}
@@ -344,7 +345,11 @@ class LogScan:
     # -- malformed records -------------------------------------------------------------------------
 
     def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
-        """Malformed records: kinds counted in `exposure_rows` plus rows the CSV reader rejected."""
+        """Malformed records: kinds counted in `exposure_rows` plus rows the CSV reader rejected.
+
+        Each scan of the view logs its rejected rows again, and a row may have
+        several errors: one per file line is kept.
+        """
         result = Malformed(counts={k: v for k, v in counts_by_kind.items() if v})
         examples = self._fetch(f"""
             SELECT _problem, _file, _line, _detail, _text FROM (
@@ -357,7 +362,9 @@ class LogScan:
             for kind, file, line, detail, text in self._fetch(f"""
                     SELECT CASE WHEN e.error_type = 'MISSING COLUMNS' THEN 'truncated' ELSE 'unparseable' END,
                            s.file_path, e.line, e.error_message, left(e.csv_line, 300)
-                    FROM {name}_errors e JOIN {name}_scans s USING (scan_id, file_id) ORDER BY s.file_path, e.line"""):
+                    FROM {name}_errors e JOIN {name}_scans s USING (scan_id, file_id)
+                    QUALIFY row_number() OVER (PARTITION BY s.file_path, e.line ORDER BY e.scan_id, e.column_idx) = 1
+                    ORDER BY 2, 3"""):
                 result.counts[kind] = result.counts.get(kind, 0) + 1
                 if sum(1 for ex in result.examples if ex.kind == kind) < EXAMPLES_PER_KIND:
                     result.examples.append(MalformedExample(kind, file, line, detail, text))

@@ -164,7 +164,7 @@ class _Audit:
 
     def run(self) -> AuditResult:
         scan = self.scan
-        layer_logged = "layer" in scan.present or not scan.present
+        layer_logged = "layer" in scan.present
         designs = self._designs(layer_logged)
         classify = _Classifier(designs, layer_logged)
         census = scan.query(f"""
@@ -211,7 +211,7 @@ class _Audit:
         if self.config is not None and not isinstance(self.expectation, (list, dict)):
             return designs_from_config(self.config)
         seen: dict[tuple[str, str], list[str]] = defaultdict(list)
-        layer = "layer" if layer_logged and "layer" in self.scan.present else "NULL"
+        layer = "layer" if layer_logged else "NULL"
         for lay, experiment, arm in self.scan.query(f"""
                 SELECT DISTINCT coalesce({layer}, '-'), experiment, arm FROM exposure_rows
                 WHERE _problem IS NULL ORDER BY ALL""", "finding experiments"):
