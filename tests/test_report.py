@@ -1,0 +1,59 @@
+"""Reports: the text table puts the mismatch first, and the HTML file renders offline in a real browser."""
+
+import re
+import shutil
+import subprocess
+
+import pytest
+
+from audit._report_html import render_html
+from audit._report_json import audit_dict
+from audit._report_text import render_text
+from tests.test_demo_logs import demo  # noqa: F401  (session fixture)
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+def test_text_report_lists_the_mismatch_first_with_its_cause(demo):  # noqa: F811
+    _, result = demo
+    text = render_text(result)
+    first = text.split("\n\n")[1]
+    assert first.startswith("MISMATCH  lesson-flow / shorter-lessons")
+    assert "localised to country=BR" in first and "exposures of 'short'" in first
+    assert "malformed records (left out): " in text
+
+
+def test_json_keeps_the_contract_types(demo):  # noqa: F811
+    _, result = demo
+    data = audit_dict(result)
+    faulty = data["results"][0]
+    assert isinstance(faulty["first_srm_day"], str) and faulty["srm"] is True
+    assert 0 <= faulty["replay_mismatch_share"] <= 1
+    assert faulty["localised"]["by"] == {"country": "BR", "app_version": "7.3.0", "platform": "android"}
+
+
+def test_html_is_self_contained(demo):  # noqa: F811
+    _, result = demo
+    page = render_html(result)
+    assert not re.search(r"""(src|href)\s*=\s*["']?(https?:)?//""", page)
+    assert "@import" not in page and "url(" not in page
+
+
+def test_html_renders_in_headless_chromium(demo, tmp_path):  # noqa: F811
+    assert CHROMIUM, "chromium is needed for this test (CI installs it)"
+    _, result = demo
+    page = tmp_path / "srm.html"
+    page.write_text(render_html(result), encoding="utf-8")
+    shot = tmp_path / "srm.png"
+    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}"]
+    dom = subprocess.run([CHROMIUM, *flags, "--dump-dom", page.as_uri()], capture_output=True, text=True,
+                         timeout=90, check=True).stdout
+    sections = re.findall(r'<section class="exp( srm)?"', dom)
+    assert len(sections) == len(result.results) and sections[0] == " srm"
+    assert dom.count("<svg") >= 2 * len(result.results)
+    assert "first below the threshold on <b>" in dom
+    assert dom.count('class="bad day"') >= 1
+    subprocess.run([CHROMIUM, *flags, "--window-size=1200,900", f"--screenshot={shot}", page.as_uri()],
+                   capture_output=True, timeout=90, check=True)
+    assert shot.stat().st_size > 20_000
