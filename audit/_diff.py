@@ -202,28 +202,22 @@ def _arm_cause(old: Placement, new: Placement) -> str | None:
 def causes(old_layer: Layer, old_exp: Experiment, old: Placement,
            new_layer: Layer, new_exp: Experiment, new: Placement) -> tuple[list[str], list[str]]:
     """Named causes of a change, and those whose share cannot be counted from buckets."""
-    found: list[str] = []
-    unknown: list[str] = []
-    if old_layer.name != new_layer.name:
-        found.append(f"layer move ({old_layer.name} → {new_layer.name})")
-    if old.layer_salt != new.layer_salt:
-        found.append("layer salt change")
-    if old.salt != new.salt:
-        found.append("salt change")
-    for cause in (_arm_cause(old, new), _range_cause(old, new)):
-        if cause:
-            found.append(cause)
-    if (old.holdout_salt, old.holdout_cut) != (new.holdout_salt, new.holdout_cut):
-        found.append("holdout change")
-    if old_exp.status != new_exp.status:
-        found.append(f"status change ({old_exp.status} → {new_exp.status})")
-    if old_exp.overrides != new_exp.overrides:
-        found.append("override change (named units only)")
-    if old_exp.eligible != new_exp.eligible:
-        unknown.append("eligibility change")
-    if (old_exp.start, old_exp.end) != (new_exp.start, new_exp.end):
-        unknown.append("date change")
-    return found, unknown
+    counted = [
+        (old_layer.name != new_layer.name, f"layer move ({old_layer.name} → {new_layer.name})"),
+        (old.layer_salt != new.layer_salt, "layer salt change"),
+        (old.salt != new.salt, "salt change"),
+        (True, _arm_cause(old, new)),
+        (True, _range_cause(old, new)),
+        ((old.holdout_salt, old.holdout_cut) != (new.holdout_salt, new.holdout_cut), "holdout change"),
+        (old_exp.status != new_exp.status, f"status change ({old_exp.status} → {new_exp.status})"),
+        (old_exp.overrides != new_exp.overrides, "override change (named units only)"),
+    ]
+    uncounted = [
+        (old_exp.eligible != new_exp.eligible, "eligibility change"),
+        ((old_exp.start, old_exp.end) != (new_exp.start, new_exp.end), "date change"),
+    ]
+    return ([cause for changed, cause in counted if changed and cause],
+            [cause for changed, cause in uncounted if changed])
 
 
 def _index(config: Config | None) -> dict[tuple[str, str], tuple[int, int]]:
