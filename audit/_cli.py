@@ -32,6 +32,17 @@ def fail(message: str, code: int = 2) -> NoReturn:
     raise typer.Exit(code)
 
 
+def key_value_pairs(pairs: list[str], option: str, shape: str) -> dict[str, str]:
+    """['a=1', 'b=2'] -> {'a': '1', 'b': '2'}; a pair without '=' or a key is a one-line error."""
+    parsed = {}
+    for pair in pairs:
+        key, sep, value = pair.partition("=")
+        if not sep or not key:
+            fail(f"{option} takes {shape}, found {pair!r}")
+        parsed[key] = value
+    return parsed
+
+
 def guarded(run: Callable[[], int | None]) -> None:
     """Run a command body: known errors become one line on stderr, unless --debug."""
     try:

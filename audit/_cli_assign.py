@@ -15,23 +15,13 @@ import typer
 
 from bucketing import Assigner, Assignment, load_config
 
-from ._cli import fail, guarded
+from ._cli import fail, guarded, key_value_pairs
 
 
 class AssignFormat(str, Enum):
     text = "text"
     json = "json"
     csv = "csv"
-
-
-def _parse_attrs(pairs: list[str]) -> dict[str, str]:
-    attrs = {}
-    for pair in pairs:
-        key, sep, value = pair.partition("=")
-        if not sep or not key:
-            fail(f"--attr takes KEY=VALUE, found {pair!r}")
-        attrs[key] = value
-    return attrs
 
 
 def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
@@ -110,7 +100,7 @@ def register(app: typer.Typer) -> None:
                 fail(f"no layer of the config assigns unit type {chosen!r}; its unit types are {types}")
             when = date.fromisoformat(day) if day else None
             assigner = Assigner(loaded)
-            extra = _parse_attrs(attr)
+            extra = key_value_pairs(attr, "--attr", "KEY=VALUE such as country=NL")
             if unit is not None:
                 got = assigner.assign({chosen: unit}, extra, day=when)
                 if fmt is AssignFormat.json:

@@ -24,7 +24,7 @@ from bucketing._loader import CONFIG_SUFFIXES
 from bucketing._model import hundredths
 
 from . import _check, _diff, _layout
-from ._cli import fail, guarded
+from ._cli import fail, guarded, key_value_pairs
 from ._sarif import sarif_log
 from ._schema import config_schema
 
@@ -42,10 +42,9 @@ class TableFormat(str, Enum):
 
 def _weekly_units(pairs: list[str]) -> dict[str, int]:
     weekly = {}
-    for pair in pairs:
-        unit_type, sep, count = pair.partition("=")
-        if not sep or not unit_type or not count.strip().replace("_", "").isdigit():
-            fail(f"--weekly-units takes UNIT_TYPE=COUNT such as learner=1400000, found {pair!r}")
+    for unit_type, count in key_value_pairs(pairs, "--weekly-units", "UNIT_TYPE=COUNT such as learner=1400000").items():
+        if not count.strip().replace("_", "").isdigit():
+            fail(f"--weekly-units takes UNIT_TYPE=COUNT such as learner=1400000, found {unit_type}={count!r}")
         weekly[unit_type] = int(count.replace("_", ""))
     return weekly
 

@@ -59,8 +59,9 @@ class _Document:
         return Problem(rule, severity, self.file, line, column, format_path(path), message)
 
 
-class _LimitedLoader(yaml.SafeLoader):
-    """SafeLoader: no object construction. Limits are enforced by `_to_plain`."""
+class _LimitedLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
+    """Safe loading only (libyaml's parser when present): no object construction.
+    Size and alias limits are enforced by `_to_plain`."""
 
 
 def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:

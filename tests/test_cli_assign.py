@@ -63,7 +63,7 @@ def test_errors_are_one_line_with_exit_2(example_dir, tmp_path):
         (("assign", str(example_dir), "--unit", "a", "--unit-type", "robot"), "no layer"),
         (("assign", str(tmp_path / "none.yaml"), "--unit", "a"), "no such file"),
         (("assign", str(example_dir), "--unit-type", "learner"), "exactly one of"),
-        (("assign", str(example_dir), "--unit", "a", "--unit-type", "learner", "--attr", "novalue"), "KEY=VALUE"),
+        (("assign", str(example_dir), "--unit", "a", "--unit-type", "learner", "--attr", "novalue"), "--attr takes KEY=VALUE"),
     ]:
         out = run(*args)
         assert out.returncode == 2, (args, out.stderr)
