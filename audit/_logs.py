@@ -149,6 +149,8 @@ class LogScan:
         self.progress = progress
         self.con = duckdb.connect()
         self.con.execute("SET TimeZone = 'UTC'")
+        self.con.execute("SET enable_progress_bar = true")  # progress is tracked for query_progress() ...
+        self.con.execute("SET enable_progress_bar_print = false")  # ... but never printed on stdout
         if threads:
             self.con.execute(f"SET threads = {int(threads)}")
         if memory_limit:

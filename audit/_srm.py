@@ -165,61 +165,76 @@ class _Audit:
     def run(self) -> AuditResult:
         scan = self.scan
         layer_logged = "layer" in scan.present
-        designs = self._designs(layer_logged)
-        classify = _Classifier(designs, layer_logged)
+        layer = "layer" if layer_logged else "NULL::VARCHAR"
         census = scan.query(f"""
-            SELECT _problem, status, layer, experiment, arm, count(*) FROM (
-                SELECT _problem, {classify.status} AS status, layer, experiment, arm FROM exposure_rows)
-            GROUP BY ALL""", "reading records")
+            SELECT _problem, {layer}, experiment, arm, CAST(ts AS DATE), count(*),
+                   count(*) - count(DISTINCT hash(unit, ts))
+            FROM exposure_rows GROUP BY ALL""", "reading records")
+        designs = self._designs([row[1:4] for row in census if row[0] is None])
+        by_name: dict[str, list[int]] = defaultdict(list)
+        for index, design in enumerate(designs):
+            by_name[design.experiment].append(index)
         problems: dict[str, int] = defaultdict(int)
-        outside: dict[tuple[str, str], int] = defaultdict(int)
+        outside: dict[int, int] = defaultdict(int)
+        logged: dict[tuple[int, int], list[int]] = defaultdict(lambda: [0, 0])
         unknown = []
         total_records = 0
-        for problem, status, layer, experiment, arm, count in census:
+        for problem, lay, experiment, arm, day, count, repeats in census:
             total_records += count
             if problem is not None:
                 problems[problem] += count
-            elif status == "outside_window":
-                outside[experiment] += count
-            elif status in ("unknown_experiment", "unknown_arm"):
-                unknown.append(UnknownRecords(experiment, arm if status == "unknown_arm" else None, layer, count, status))
+                continue
+            index = next((i for i in by_name.get(experiment, ()) if lay is None or designs[i].layer == lay), None)
+            if index is None:
+                unknown.append(UnknownRecords(experiment, None, lay, count, "unknown_experiment"))
+                continue
+            design = designs[index]
+            if arm not in design.arms:
+                unknown.append(UnknownRecords(experiment, arm, lay, count, "unknown_arm"))
+            elif (design.start and day < design.start) or (design.end and day > design.end):
+                outside[index] += count
+            else:
+                totals = logged[(index, design.arms.index(arm))]
+                totals[0] += count
+                totals[1] += repeats
         unknown = self._merge_unknown(unknown)
         malformed = scan.malformed(problems)
         if total_records and total_records == malformed.total:
             raise LogError(f"{scan.files[0].path}: no usable exposure record "
                            f"({malformed.total} malformed; first: {malformed.examples[0].detail})")
+        classify = _Classifier(designs, layer_logged)
         attrs = [scan.attribute_column(a) for a in scan.attributes]
-        attr_select = "".join(f", arg_min({c}, ts) AS {c}" for c in attrs)
+        kept = [*(["config", "unit_type"] if self.replay_configs else []), *attrs]
+        # the smallest struct is the first exposure (ts leads), so one aggregate gives its arm and attributes
+        first = ", ".join(f"{c} := {c}" for c in ["ts", "arm", *kept])
         scan.execute(f"""
             CREATE TEMP TABLE unit_rows AS
-            SELECT exp, unit, min(ts) AS first_ts, arg_min(arm, ts) AS arm, min(arm) AS arm_low, max(arm) AS arm_high,
-                   min(arm) <> max(arm) AS multi,
-                   count(*) AS records, count(*) - count(DISTINCT ts) AS duplicates, bool_or(forced) AS forced,
-                   arg_min(config, ts) AS config, arg_min(unit_type, ts) AS unit_type{attr_select}
-            FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, ts, forced, config, unit_type
-                         {''.join(', ' + c for c in attrs)}
-                  FROM exposure_rows WHERE {classify.status} = 'ok')
-            GROUP BY exp, unit""", "counting units")
-        results = [self._experiment(index, design, outside.get(design.experiment, 0))
+            SELECT exp, unit, first.ts AS first_ts, first.arm AS arm, arm_low, arm_high, arm_low <> arm_high AS multi,
+                   forced{''.join(f', first.{c} AS {c}' for c in kept)}
+            FROM (
+                SELECT exp, unit, min(struct_pack({first})) AS first, min(arm) AS arm_low, max(arm) AS arm_high,
+                       bool_or(forced) AS forced
+                FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, ts, forced, config, unit_type
+                             {''.join(', ' + c for c in attrs)}
+                      FROM exposure_rows WHERE {classify.status} = 'ok')
+                GROUP BY exp, unit)""", "counting units")
+        results = [self._experiment(index, design, outside.get(index, 0),
+                                    [logged.get((index, arm), [0, 0]) for arm in range(len(design.arms))])
                    for index, design in enumerate(designs)]
         results = [r for r in results if r.units or r.records or r.outside_window_records]
         results.sort(key=lambda r: (not r.srm, r.p_value, r.layer, r.experiment))
         return AuditResult(self.threshold, [f.path for f in scan.files], total_records, results, malformed,
                            unknown, self.terms, self.notes)
 
-    def _designs(self, layer_logged: bool) -> list[Design]:
-        if self.config is not None and not isinstance(self.expectation, (list, dict)):
+    def _designs(self, seen_rows: list[tuple]) -> list[Design]:
+        if self.config is not None and self.expectation is None:
             return designs_from_config(self.config)
-        seen: dict[tuple[str, str], list[str]] = defaultdict(list)
-        layer = "layer" if layer_logged else "NULL"
-        for lay, experiment, arm in self.scan.query(f"""
-                SELECT DISTINCT coalesce({layer}, '-'), experiment, arm FROM exposure_rows
-                WHERE _problem IS NULL ORDER BY ALL""", "finding experiments"):
-            seen[(lay, experiment)].append(arm)
-        if self.config is not None:
-            known = {d.experiment: d for d in designs_from_config(self.config)}
-            seen = {(known[e].layer if e in known else lay, e): arms for (lay, e), arms in seen.items()}
-        return designs_from_expectation(seen, self.expectation)
+        seen: dict[tuple[str, str], set[str]] = defaultdict(set)
+        known = {d.experiment: d for d in designs_from_config(self.config)} if self.config is not None else {}
+        for lay, experiment, arm in seen_rows:
+            layer = known[experiment].layer if experiment in known else (lay or "-")
+            seen[(layer, experiment)].add(arm)
+        return designs_from_expectation({k: sorted(v) for k, v in seen.items()}, self.expectation)
 
     @staticmethod
     def _merge_unknown(unknown: list[UnknownRecords]) -> list[UnknownRecords]:
@@ -242,29 +257,26 @@ class _Audit:
             counts[arm] = units
         return counts
 
-    def _experiment(self, index: int, design: Design, outside_records: int) -> ExperimentResult:
+    def _experiment(self, index: int, design: Design, outside_records: int,
+                    logged: list[list[int]]) -> ExperimentResult:
+        """One experiment's test; `logged` gives, per arm, its records and its repeated records."""
         scan = self.scan
-        per_arm = {arm: (units, records, dups) for arm, units, records, dups in scan.query(f"""
-            SELECT arm, count(*), sum(records), sum(duplicates) FROM unit_rows
-            WHERE exp = {index} AND NOT multi AND NOT forced GROUP BY arm""")}
-        (multi, forced, all_records, all_dups), = scan.query(f"""
-            SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi),
-                   coalesce(sum(records), 0), coalesce(sum(duplicates), 0)
+        counts = self._arm_counts(index, design)
+        (multi, forced), = scan.query(f"""
+            SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi)
             FROM unit_rows WHERE exp = {index}""")
-        counts = [per_arm.get(i, (0, 0, 0))[0] for i in range(len(design.arms))]
         fit = _stats.chi_square_fit(counts, design.shares)
         gaps = _stats.arm_gaps(counts, design.shares)
         total = sum(counts)
         arms = []
-        for i, (name, gap) in enumerate(zip(design.arms, gaps)):
+        for (name, gap), (records, repeats) in zip(zip(design.arms, gaps), logged):
             low, high = _stats.share_interval(gap.observed, total)
-            _, records, dups = per_arm.get(i, (0, 0, 0))
             arms.append(ArmResult(name, gap.observed, gap.expected_share, gap.observed_share, gap.expected,
-                                  gap.excess, gap.ratio, low, high, int(records or 0), int(dups or 0)))
+                                  gap.excess, gap.ratio, low, high, records, repeats))
         result = ExperimentResult(
             layer=design.layer, experiment=design.experiment, units=total, arms=arms, chi2=fit.statistic,
-            df=fit.df, p_value=fit.pvalue, srm=fit.pvalue < self.threshold, records=int(all_records),
-            duplicate_records=int(all_dups), multi_arm_units=multi, multi_arm_examples=self._multi_examples(index, design),
+            df=fit.df, p_value=fit.pvalue, srm=fit.pvalue < self.threshold, records=sum(a.records for a in arms),
+            duplicate_records=sum(a.duplicate_records for a in arms), multi_arm_units=multi, multi_arm_examples=self._multi_examples(index, design),
             forced_units=forced, outside_window_records=outside_records,
             records_p_value=_stats.chi_square_fit([a.records for a in arms], design.shares).pvalue,
         )
