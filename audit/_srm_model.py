@@ -8,6 +8,10 @@ from datetime import date
 from ._logs import Malformed
 
 
+def _share(part: int, whole: int) -> float | None:
+    return part / whole if whole else None
+
+
 @dataclass(frozen=True)
 class Design:
     """What one experiment should look like: its arms, their expected shares, its date window."""
@@ -58,9 +62,7 @@ class SegmentResult:
     def label(self) -> str:
         return ", ".join(f"{k}={v}" for k, v in self.by.items())
 
-    @property
-    def replay_mismatch_share(self) -> float | None:
-        return self.replay_mismatched / self.replay_checked if self.replay_checked else None
+    replay_mismatch_share = property(lambda self: _share(self.replay_mismatched, self.replay_checked))
 
 
 @dataclass
@@ -124,9 +126,7 @@ class ExperimentResult:
     replay_examples: list[dict] = field(default_factory=list)
     causes: list[Cause] = field(default_factory=list)
 
-    @property
-    def replay_mismatch_share(self) -> float | None:
-        return self.replay_mismatched / self.replay_checked if self.replay_checked else None
+    replay_mismatch_share = property(lambda self: _share(self.replay_mismatched, self.replay_checked))
 
 
 @dataclass
