@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import sys
 import traceback
 from typing import Callable, NoReturn
 
@@ -76,6 +75,3 @@ _register_all()
 def main() -> None:
     app(prog_name="sortition")
 
-
-if __name__ == "__main__":
-    sys.exit(main())
