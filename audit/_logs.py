@@ -24,7 +24,7 @@ from typing import Callable, Iterable, Mapping
 
 import duckdb
 
-from bucketing._exposure import RECORD_FIELDS
+from bucketing import RECORD_FIELDS
 
 REQUIRED_FIELDS = ("unit", "experiment", "arm", "ts")
 OPTIONAL_FIELDS = tuple(f for f in RECORD_FIELDS if f not in REQUIRED_FIELDS)

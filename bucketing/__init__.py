@@ -9,7 +9,7 @@
 
 from ._assigner import Assigner, Assignment, LayerAssignment
 from ._errors import ConfigError, Problem, SortitionError
-from ._exposure import CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
+from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
 from ._loader import Config, load_config, parse_config
 
@@ -27,6 +27,7 @@ __all__ = [
     "JsonLinesSink",
     "LoggingSink",
     "CallbackSink",
+    "RECORD_FIELDS",
     "ConfigError",
     "Problem",
     "SortitionError",
