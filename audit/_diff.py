@@ -195,8 +195,20 @@ def _arm_cause(old: Placement, new: Placement) -> str | None:
     if sorted(name for name, _ in old.arms) != sorted(name for name, _ in new.arms):
         return "arm set change"
     if dict(old.arms) != dict(new.arms):
-        return "weight change"
+        ramp = _ramp_arm(old, new)
+        return f"weight change (units only move into {ramp!r})" if ramp else "weight change"
     return "arm reorder"
+
+
+def _ramp_arm(old: Placement, new: Placement) -> str | None:
+    """The arm every switching unit moves into, when there is one: a monotone ramp of a rollout."""
+    if old.salt != new.salt:
+        return None
+    before, after = old.arm_labels(), new.arm_labels()
+    names_before = np.array([name for name, _ in old.arms] + [""])[before]
+    names_after = np.array([name for name, _ in new.arms] + [""])[after]
+    targets = set(names_after[names_before != names_after].tolist())
+    return targets.pop() if len(targets) == 1 and "" not in targets else None
 
 
 def causes(old_layer: Layer, old_exp: Experiment, old: Placement,

@@ -49,7 +49,8 @@ def test_unchanged_configs_keep_every_unit(configs):
 @pytest.mark.parametrize("file, old, new, experiment, cause", [
     ("lessons.yaml", "salt: shorter-lessons-1", "salt: shorter-lessons-2", "shorter-lessons", "salt change"),
     ("lessons.yaml", "salt: lesson-flow-v1", "salt: lesson-flow-v2", "shorter-lessons", "layer salt change"),
-    ("audio.yaml", "weight: 20", "weight: 25", "new-audio-engine", "weight change"),
+    ("audio.yaml", "weight: 20", "weight: 25", "new-audio-engine", "weight change (units only move into 'new-engine')"),
+    ("lessons.yaml", "weight: 34", "weight: 30", "review-first", "weight change"),
     ("lessons.yaml", '["4000-5999"]', '["4000-4999"]', "review-first", "range shrink"),
     ("lessons.yaml", '["4000-5999"]', '["6000-7999"]', "review-first", "range move"),
     ("holdout.yaml", "percent: 2", "percent: 4", "trial-length", "holdout change"),
@@ -58,6 +59,8 @@ def test_running_experiment_that_moves_units_is_blocked_with_its_cause(configs, 
     _edit(configs[1] / file, old, new)
     if file == "audio.yaml":
         _edit(configs[1] / file, "weight: 80", "weight: 75")
+    if old == "weight: 34":  # 34/33/33 -> 30/33/37: units move into review-first and into review-mixed
+        _edit(configs[1] / file, "name: review-mixed\n            weight: 33", "name: review-mixed\n            weight: 37")
     got, data = _diff(*configs)
     assert got.exit_code == 1
     row = _experiment(data, experiment)
