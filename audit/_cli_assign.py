@@ -26,7 +26,7 @@ class AssignFormat(str, Enum):
 
 def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
     """Units from a file (or '-' for stdin): one id per line, or CSV with a `unit` column and attributes."""
-    stream = sys.stdin if source == "-" else open(source, encoding="utf-8", newline="")
+    stream = sys.stdin if source == "-" else open(source, encoding="utf-8-sig", newline="")
     name = "<stdin>" if source == "-" else source
     with stream:
         first = stream.readline()
@@ -37,7 +37,8 @@ def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
             reader = csv.DictReader(stream, fieldnames=header)
             for line_no, row in enumerate(reader, start=2):
                 if None in row or any(v is None for v in row.values()):
-                    fail(f"{name}:{line_no}: expected {len(header)} columns")
+                    found = sum(v is not None for k, v in row.items() if k is not None) + len(row.get(None) or [])
+                    fail(f"{name}:{line_no}: expected {len(header)} columns ({','.join(header)}), found {found}")
                 unit = row.pop("unit")
                 yield unit, {k: v for k, v in row.items() if v != ""}
         else:
@@ -110,8 +111,7 @@ def register(app: typer.Typer) -> None:
                 else:
                     typer.echo(_text(got, chosen))
                 return 0
-            rows = list(_read_units(units))
-            results = (assigner.assign({chosen: uid}, {**extra, **a}, day=when) for uid, a in rows)
+            results = (assigner.assign({chosen: uid}, {**extra, **a}, day=when) for uid, a in _read_units(units))
             layer_names = [layer.name for layer in loaded.layers if layer.unit == chosen]
             if fmt is AssignFormat.csv:
                 _write_csv(_csv_rows(results, layer_names, chosen))

@@ -69,3 +69,19 @@ def test_errors_are_one_line_with_exit_2(example_dir, tmp_path):
         assert out.returncode == 2, (args, out.stderr)
         assert needle in out.stderr, (needle, out.stderr)
         assert "Traceback" not in out.stderr and out.stdout == ""
+
+
+def test_units_csv_with_byte_order_mark_and_crlf(example_dir, tmp_path):
+    units = tmp_path / "units.csv"
+    units.write_bytes("\ufeffunit,country\r\nL-1,NL\r\n".encode("utf-8"))
+    out = run("assign", str(example_dir), "--units", str(units), "--unit-type", "learner", "--format", "json")
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout)["unit"] == "L-1"
+
+
+def test_units_csv_row_with_wrong_column_count_names_the_line(example_dir, tmp_path):
+    units = tmp_path / "units.csv"
+    units.write_text("unit,country\nL-1,NL\nL-2,NL,extra\n")
+    out = run("assign", str(example_dir), "--units", str(units), "--unit-type", "learner", "--format", "json")
+    assert out.returncode == 2
+    assert f"{units}:3: expected 2 columns (unit,country), found 3" in out.stderr
