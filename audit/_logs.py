@@ -151,6 +151,7 @@ class LogScan:
         self.con.execute("SET TimeZone = 'UTC'")
         self.con.execute("SET enable_progress_bar = true")  # progress is tracked for query_progress() ...
         self.con.execute("SET enable_progress_bar_print = false")  # ... but never printed on stdout
+        self.con.execute("SET preserve_insertion_order = false")  # every query that needs an order says so
         if threads:
             self.con.execute(f"SET threads = {int(threads)}")
         if memory_limit:
@@ -179,7 +180,8 @@ class LogScan:
                     broken: tuple[str, str] | None = None) -> str:
         """SELECT list from per-field text expressions and per-field type checks.
 
-        `values[f]` is the field's value as text (NULL when absent); `kinds[f]`
+        `values[f]` is the field's value as text (NULL when absent), except
+        that `ts` and `forced` may keep a native TIMESTAMP or BOOLEAN type; `kinds[f]`
         is NULL when the field's type is acceptable, else what was found; `ts`
         is the time parsed as a UTC TIMESTAMP.
         `broken` is (kind, detail) for records that could not be parsed at all.
@@ -258,9 +260,15 @@ class LogScan:
     def _typed_select(self, present: Mapping[str, str]) -> str:
         """Normalised columns from a typed source (CSV read as text, or Parquet)."""
         values, kinds = {}, {}
+        native = {"ts": "TIMESTAMP", "forced": "BOOLEAN"}  # kept as they are: formatting them as text costs a lot
         for name in RECORD_FIELDS:
             column = self.columns[name]
-            values[name] = f"CAST({_ident(column)} AS VARCHAR)" if column in present else "NULL::VARCHAR"
+            if column not in present:
+                values[name] = "NULL::VARCHAR"
+            elif present[column].startswith(("VARCHAR", native.get(name, "VARCHAR"))):
+                values[name] = _ident(column)
+            else:
+                values[name] = f"CAST({_ident(column)} AS VARCHAR)"
         for attr in self.attributes:
             values["a:" + attr] = f"CAST({_ident(attr)} AS VARCHAR)" if attr in present else "NULL::VARCHAR"
         ts_type = present.get(self.columns["ts"], "")

@@ -87,12 +87,11 @@ def _text(value: str) -> str:
 
 
 class _Classifier:
-    """SQL expressions that map a record to its experiment index, arm index and status."""
+    """SQL expressions that map a record to its experiment index, its arm index, and whether it is outside its dates."""
 
     def __init__(self, designs: Sequence[Design], layer_logged: bool) -> None:
-        self.designs = designs
         layer_test = "(layer IS NULL OR layer = {})" if layer_logged else "true"
-        exp_cases, arm_cases, status_cases = [], [], []
+        exp_cases, arm_cases, window_cases = [], [], []
         for index, d in enumerate(designs):
             match = f"experiment = {_text(d.experiment)} AND " + layer_test.format(_text(d.layer))
             exp_cases.append(f"WHEN {match} THEN {index}")
@@ -103,14 +102,11 @@ class _Classifier:
                 window.append(f"CAST(ts AS DATE) < DATE '{d.start.isoformat()}'")
             if d.end:
                 window.append(f"CAST(ts AS DATE) > DATE '{d.end.isoformat()}'")
-            outside = f"WHEN {' OR '.join(window)} THEN 'outside_window' " if window else ""
-            arm_list = ", ".join(_text(a) for a in d.arms)
-            status_cases.append(f"WHEN {match} THEN CASE WHEN arm NOT IN ({arm_list}) THEN 'unknown_arm' "
-                                f"{outside}ELSE 'ok' END")
+            window_cases.append(f"WHEN {match} THEN {' OR '.join(window) or 'false'}")
         self.experiment = f"CASE {' '.join(exp_cases)} END" if designs else "NULL::INTEGER"
         self.arm = f"CASE {' '.join(arm_cases)} END" if designs else "NULL::INTEGER"
-        self.status = (f"CASE WHEN _problem IS NOT NULL THEN NULL {' '.join(status_cases)} "
-                       f"ELSE 'unknown_experiment' END")
+        any_window = any(d.start or d.end for d in designs)
+        self.outside = f"coalesce(CASE {' '.join(window_cases)} END, false)" if any_window else "false"
 
 
 def audit_logs(sources: Iterable[str], *, config: Config | None = None, expectation=None,
@@ -165,12 +161,15 @@ class _Audit:
     def run(self) -> AuditResult:
         scan = self.scan
         layer_logged = "layer" in scan.present
-        layer = "layer" if layer_logged else "NULL::VARCHAR"
-        census = scan.query(f"""
-            SELECT _problem, {layer}, experiment, arm, CAST(ts AS DATE), count(*),
-                   count(*) - count(DISTINCT hash(unit, ts))
-            FROM exposure_rows GROUP BY ALL""", "reading records")
-        designs = self._designs([row[1:4] for row in census if row[0] is None])
+        designs = self._designs_from_config()
+        attrs = [scan.attribute_column(a) for a in scan.attributes]
+        kept = [*(["config", "unit_type"] if self.replay_configs else []), *attrs]
+        self._read_unit_arms(_Classifier(designs or [], layer_logged).outside, kept)
+        census = scan.query("""
+            SELECT _problem, layer, experiment, arm, outside, sum(records), sum(repeats)
+            FROM unit_arms GROUP BY ALL""", "counting records")
+        if designs is None:
+            designs = self._designs_from_logs([row[1:4] for row in census if row[0] is None])
         by_name: dict[str, list[int]] = defaultdict(list)
         for index, design in enumerate(designs):
             by_name[design.experiment].append(index)
@@ -179,7 +178,7 @@ class _Audit:
         logged: dict[tuple[int, int], list[int]] = defaultdict(lambda: [0, 0])
         unknown = []
         total_records = 0
-        for problem, lay, experiment, arm, day, count, repeats in census:
+        for problem, lay, experiment, arm, out_of_window, count, repeats in census:
             total_records += count
             if problem is not None:
                 problems[problem] += count
@@ -191,7 +190,7 @@ class _Audit:
             design = designs[index]
             if arm not in design.arms:
                 unknown.append(UnknownRecords(experiment, arm, lay, count, "unknown_arm"))
-            elif (design.start and day < design.start) or (design.end and day > design.end):
+            elif out_of_window:
                 outside[index] += count
             else:
                 totals = logged[(index, design.arms.index(arm))]
@@ -202,22 +201,7 @@ class _Audit:
         if total_records and total_records == malformed.total:
             raise LogError(f"{scan.files[0].path}: no usable exposure record "
                            f"({malformed.total} malformed; first: {malformed.examples[0].detail})")
-        classify = _Classifier(designs, layer_logged)
-        attrs = [scan.attribute_column(a) for a in scan.attributes]
-        kept = [*(["config", "unit_type"] if self.replay_configs else []), *attrs]
-        # the smallest struct is the first exposure (ts leads), so one aggregate gives its arm and attributes
-        first = ", ".join(f"{c} := {c}" for c in ["ts", "arm", *kept])
-        scan.execute(f"""
-            CREATE TEMP TABLE unit_rows AS
-            SELECT exp, unit, first.ts AS first_ts, first.arm AS arm, arm_low, arm_high, arm_low <> arm_high AS multi,
-                   forced{''.join(f', first.{c} AS {c}' for c in kept)}
-            FROM (
-                SELECT exp, unit, min(struct_pack({first})) AS first, min(arm) AS arm_low, max(arm) AS arm_high,
-                       bool_or(forced) AS forced
-                FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, ts, forced, config, unit_type
-                             {''.join(', ' + c for c in attrs)}
-                      FROM exposure_rows WHERE {classify.status} = 'ok')
-                GROUP BY exp, unit)""", "counting units")
+        self._unit_rows(_Classifier(designs, layer_logged), kept)
         results = [self._experiment(index, design, outside.get(index, 0),
                                     [logged.get((index, arm), [0, 0]) for arm in range(len(design.arms))])
                    for index, design in enumerate(designs)]
@@ -226,9 +210,53 @@ class _Audit:
         return AuditResult(self.threshold, [f.path for f in scan.files], total_records, results, malformed,
                            unknown, self.terms, self.notes)
 
-    def _designs(self, seen_rows: list[tuple]) -> list[Design]:
-        if self.config is not None and self.expectation is None:
-            return designs_from_config(self.config)
+    def _read_unit_arms(self, outside: str, kept: list[str]) -> None:
+        """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
+
+        Each row has the unit's records, how many of them repeat another one
+        exactly (same unit, arm and time), and its first exposure in that arm:
+        the time and the `kept` columns then. Malformed records and records
+        outside their experiment's dates are only counted: their rows have no unit.
+        """
+        values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
+        self.scan.execute(f"""
+            CREATE TEMP TABLE unit_arms AS
+            SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
+            FROM (
+                SELECT _problem, layer, experiment, arm, outside, unit, count(*) AS records, min(ts) AS first_ts,
+                       arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
+                       list(ts) FILTER (WHERE unit IS NOT NULL) AS times
+                FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
+                      FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
+                                   {values} AS kept
+                            FROM exposure_rows))
+                GROUP BY _problem, layer, experiment, arm, outside, unit)""", "reading records")
+
+    def _unit_rows(self, classify: _Classifier, kept: list[str]) -> None:
+        """One row per unit and experiment, `unit_rows`: its arm at first exposure, and whether it saw several arms.
+
+        A unit seen in several arms is left out of every count, so which of
+        them comes first when two exposures share their time does not matter.
+        """
+        self.scan.execute(f"""
+            CREATE TEMP TABLE unit_rows AS
+            SELECT * EXCLUDE (first_kept), arm_low <> arm_high AS multi
+                   {''.join(f', first_kept[{i + 1}] AS {c}' for i, c in enumerate(kept))}
+            FROM (
+                SELECT exp, unit, min(first_ts) AS first_ts, arg_min(arm, first_ts) AS arm,
+                       arg_min(first_kept, first_ts) AS first_kept, min(arm) AS arm_low, max(arm) AS arm_high,
+                       bool_or(forced) AS forced
+                FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, first_ts, first_kept, forced
+                      FROM unit_arms WHERE unit IS NOT NULL)
+                WHERE arm IS NOT NULL
+                GROUP BY exp, unit)""", "counting units")
+
+    def _designs_from_config(self) -> list[Design] | None:
+        """The designs, when the config alone gives them (otherwise they depend on the arms seen in the logs)."""
+        return designs_from_config(self.config) if self.config is not None and self.expectation is None else None
+
+    def _designs_from_logs(self, seen_rows: list[tuple]) -> list[Design]:
+        """The designs of --expect: every (layer, experiment) seen in the logs, with the arms seen."""
         seen: dict[tuple[str, str], set[str]] = defaultdict(set)
         known = {d.experiment: d for d in designs_from_config(self.config)} if self.config is not None else {}
         for lay, experiment, arm in seen_rows:
