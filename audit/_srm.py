@@ -1,10 +1,12 @@
 """The SRM audit: exposure logs in, one result per experiment out (read -> compute, no rendering).
 
 DuckDB does the counting. One pass over the records reduces them to one row
-per unit and experiment (first exposure, arm, attributes at that time,
-number of records); every later count (arms, days, segments) runs on that
-much smaller table. The statistics come from `_stats`, the replay from the
-SDK itself.
+per unit and logged arm (records, exact repeats, first exposure and the
+attributes then); malformed records, unknown experiments and arms, and
+records outside the dates are counted from that table, and a second, small
+aggregate gives one row per unit and experiment. Every later count (arms,
+days, segments, drill-down) runs on that much smaller table. The statistics
+come from `_stats`, the replay from the SDK itself.
 
     result = audit_logs(["logs/"], config=load_config("configs/"), terms=parse_terms("country,platform"))
 """
