@@ -15,7 +15,7 @@ import typer
 
 from bucketing import Assigner, Assignment, load_config
 
-from ._cli import fail, guarded, key_value_pairs
+from ._cli_common import fail, guarded, key_value_pairs
 
 
 class AssignFormat(str, Enum):

@@ -24,7 +24,7 @@ from bucketing._loader import CONFIG_SUFFIXES
 from bucketing._model import hundredths
 
 from . import _check, _diff, _layout
-from ._cli import fail, guarded, key_value_pairs
+from ._cli_common import fail, guarded, key_value_pairs
 from ._sarif import sarif_log
 from ._schema import config_schema
 

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import typer
 
-from ._cli import fail, guarded
+from ._cli_common import fail, guarded
 
 # Edits to configs_example/lessons.yaml that make the two bad changes of the story.
 OVERLAP_EDIT = ('buckets: ["4000-5999"]', 'buckets: ["3500-5999"]')

@@ -8,17 +8,16 @@ import tempfile
 import time
 from enum import Enum
 from pathlib import Path
-from typing import Optional
+from typing import TYPE_CHECKING, Optional
 
 import typer
 
 from bucketing import load_config
 
-from ._cli import fail, guarded
-from ._logs import LogError, parse_column_map
-from ._stats import DEFAULT_THRESHOLD
-from ._srm import DEFAULT_REPLAY_UNITS, audit_logs, parse_expectation, parse_terms
-from ._srm_model import AuditResult
+from ._cli_common import fail, guarded
+
+if TYPE_CHECKING:  # the audit's modules load DuckDB and SciPy: imported when `srm` runs, not at start-up
+    from ._srm_model import AuditResult
 
 
 class SrmFormat(str, Enum):
@@ -97,13 +96,13 @@ def register(app: typer.Typer) -> None:
                                                               "e.g. --column unit=user_id --column arm=variant."),
         expect: Optional[str] = typer.Option(None, "--expect", help="Expected split when there is no config "
                                              "(or to override it): 50,50 (arms in name order) or control=50,short=50."),
-        threshold: float = typer.Option(DEFAULT_THRESHOLD, "--threshold", help="p-value below which a split is a "
-                                        "mismatch (default 0.0005, per Fabijan et al., KDD 2019)."),
+        threshold: Optional[float] = typer.Option(None, "--threshold", help="p-value below which a split is a "
+                                                  "mismatch (default 0.0005, per Fabijan et al., KDD 2019)."),
         fmt: SrmFormat = typer.Option(SrmFormat.text, "--format", help="text, json or html."),
         out: Optional[Path] = typer.Option(None, "--out", help="Write the report to this file instead of stdout."),
         strict: bool = typer.Option(False, "--strict", help="Exit 2 if any record is malformed."),
-        replay_units: int = typer.Option(DEFAULT_REPLAY_UNITS, "--replay-units", help="Units per experiment whose "
-                                         "arm is recomputed from the config (a fixed random sample); 0 for all."),
+        replay_units: Optional[int] = typer.Option(None, "--replay-units", help="Units per experiment whose arm is "
+                                                   "recomputed from the config (a sample; default 50,000); 0 for all."),
         log_format: Optional[str] = typer.Option(None, "--log-format", help="jsonl, csv, tsv or parquet, for "
                                                  "files whose name does not say."),
         quiet: bool = typer.Option(False, "--quiet", help="No progress on stderr."),
@@ -111,8 +110,13 @@ def register(app: typer.Typer) -> None:
         """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
 
         def run() -> int:
-            if not 0 < threshold < 1:
-                fail(f"--threshold must be between 0 and 1, found {threshold}")
+            from ._logs import LogError, parse_column_map
+            from ._srm import DEFAULT_REPLAY_UNITS, audit_logs, parse_expectation, parse_terms
+            from ._stats import DEFAULT_THRESHOLD
+
+            cutoff = DEFAULT_THRESHOLD if threshold is None else threshold
+            if not 0 < cutoff < 1:
+                fail(f"--threshold must be between 0 and 1, found {cutoff}")
             if log_format is not None and log_format not in ("jsonl", "csv", "tsv", "parquet"):
                 fail(f"--log-format must be jsonl, csv, tsv or parquet, found {log_format!r}")
             loaded = load_config(config) if config is not None else None
@@ -121,8 +125,9 @@ def register(app: typer.Typer) -> None:
                 try:
                     result = audit_logs(
                         sources, config=loaded, expectation=parse_expectation(expect) if expect else None,
-                        terms=parse_terms(by), columns=parse_column_map(column), threshold=threshold,
-                        versions=config_versions, replay_units=replay_units, log_format=log_format,
+                        terms=parse_terms(by), columns=parse_column_map(column), threshold=cutoff,
+                        versions=config_versions,
+                        replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units, log_format=log_format,
                         progress=None if quiet else _StderrProgress())
                 except LogError as exc:
                     fail(str(exc))
