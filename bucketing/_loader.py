@@ -131,7 +131,10 @@ def _read_document(path: Path, text: str | None = None) -> _Document:
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line, column = (mark.line + 1, mark.column + 1) if mark else (1, 1)
-        message = " ".join(str(p) for p in (exc.context, exc.problem) if p)
+        context = exc.context
+        if context and exc.context_mark and exc.problem_mark and exc.context_mark.line != exc.problem_mark.line:
+            context += f" (started at line {exc.context_mark.line + 1}, column {exc.context_mark.column + 1})"
+        message = " ".join(str(p) for p in (context, exc.problem) if p)
         raise ConfigError([Problem("yaml-syntax", "error", doc.file, line, column, "", message)]) from None
     except yaml.YAMLError as exc:
         raise ConfigError([doc.problem("yaml-syntax", (), str(exc).splitlines()[0])]) from None

@@ -194,3 +194,9 @@ def test_bad_reload_keeps_the_old_config_serving(tmp_path):
         assigner.reload(path)
     assert assigner.version == before
     assert assigner.assign({"learner": "u-1"}).layers["flow"].bucket is not None
+
+
+def test_unclosed_bracket_says_where_it_opened():
+    problem = only_error("format: 1\nlayers:\n  - name: [x\n")
+    assert problem.rule == "yaml-syntax"
+    assert "started at line 3, column 11" in problem.message
