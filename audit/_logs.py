@@ -9,6 +9,33 @@ and `_detail` saying what is wrong, so nothing is dropped silently.
 
 JSON Lines are read as raw lines and parsed in SQL, one pass: that keeps
 every line, good or bad, and blank lines keep the line count right.
+
+Logs written by other systems bend the contract in ordinary ways; the
+reading step normalises them, in SQL (the macros of `_NORMALISE`), the
+same way for every format:
+
+- `ts`: ISO-8601 / RFC 3339 with `T` or a space, `Z`, an offset (converted
+  to UTC) or no zone (taken as UTC, as the contract's times are UTC), any
+  fraction of a second, lower-case `t`/`z`, or a plain date (midnight UTC);
+  or a number of seconds, milliseconds, microseconds or nanoseconds since
+  1970, told apart by magnitude (below 10^11 seconds, below 10^14
+  milliseconds, below 10^17 microseconds, below 10^20 nanoseconds), noted
+  per file in `LogScan.notes` once counted (see `epoch_notes`).
+- `forced`: true/false, t/f, yes/no, y/n, 1/0 (any case; a JSON boolean or
+  number, or text); empty or absent is false.
+- `unit` and the other names: a JSON or Parquet integer is read in
+  decimal (so `12345` hashes as "12345", as the hashing rule says); an
+  integral JSON float such as `12345.0` too.
+- Names are compared exactly: no case folding, no trimming. An arm logged
+  as "Control" or "control " is an unknown arm, reported as such.
+- CSV: the delimiter (`,` `;` tab `|`) is taken from the header line, a
+  UTF-8 byte order mark is skipped, CRLF and quoted fields are read;
+  column names are trimmed. JSON Lines: a byte order mark, CRLF, mixed
+  line ends and blank lines are fine.
+- An empty file, or a CSV with a header and no rows, is skipped with a note.
+
+Values that still cannot be read (a `ts` of "yesterday", a `forced` of
+"maybe") are `wrong_type` records, counted and located by file and line.
 """
 
 from __future__ import annotations
@@ -17,10 +44,12 @@ import csv
 import glob
 import gzip
 import io
+import re
 import threading
+from contextlib import closing
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable, Mapping
+from typing import Callable, Iterable, Iterator, Mapping
 
 import duckdb
 
@@ -31,6 +60,29 @@ OPTIONAL_FIELDS = tuple(f for f in RECORD_FIELDS if f not in REQUIRED_FIELDS)
 TEXT_FIELDS = ("unit_type", "layer", "experiment", "arm", "config")
 PROBLEM_KINDS = ("unparseable", "truncated", "missing_field", "wrong_type")
 EXAMPLES_PER_KIND = 5
+CSV_DELIMITERS = (",", ";", "\t", "|")
+EPOCH_UNITS = ("seconds", "milliseconds", "microseconds", "nanoseconds")  # index = _ts_epoch in `exposure_rows`
+
+_NORMALISE = """
+    CREATE TEMP MACRO iso_time(t) AS CASE WHEN ascii(t) BETWEEN 48 AND 57
+        THEN TRY_CAST(TRY_CAST(t AS TIMESTAMPTZ) AT TIME ZONE 'UTC' AS TIMESTAMP) END;
+    CREATE TEMP MACRO epoch_number(t) AS CASE WHEN regexp_full_match(t, '[0-9]+([.][0-9]+)?') THEN CAST(t AS DOUBLE) END;
+    CREATE TEMP MACRO epoch_unit(n) AS CASE WHEN n < 1e11 THEN 0 WHEN n < 1e14 THEN 1 WHEN n < 1e17 THEN 2
+        WHEN n < 1e20 THEN 3 END;
+    CREATE TEMP MACRO epoch_time(n) AS make_timestamp(CAST(n * [1e6, 1e3, 1, 1e-3][epoch_unit(n) + 1] AS BIGINT));
+    CREATE TEMP MACRO time_of(t) AS coalesce(iso_time(t), iso_time(upper(trim(t))), epoch_time(epoch_number(trim(t))));
+    CREATE TEMP MACRO time_epoch_unit(t) AS CASE WHEN iso_time(t) IS NULL THEN epoch_unit(epoch_number(trim(t))) END;
+    CREATE TEMP MACRO flag_of(t) AS CASE
+        WHEN t IS NULL OR trim(t) = '' THEN false
+        WHEN lower(trim(t)) IN ('true', 't', 'yes', 'y', '1') THEN true
+        WHEN lower(trim(t)) IN ('false', 'f', 'no', 'n', '0') THEN false END;
+    CREATE TEMP MACRO integer_text(t) AS CASE
+        WHEN regexp_full_match(t, '-?[0-9]+') THEN t
+        WHEN TRY_CAST(t AS DOUBLE) = trunc(TRY_CAST(t AS DOUBLE)) AND abs(TRY_CAST(t AS DOUBLE)) < 9007199254740992
+            THEN CAST(CAST(t AS DOUBLE) AS BIGINT)::VARCHAR END;
+"""
+TIME_EXPECTED = "expected an ISO-8601 time or an epoch number, found "
+FLAG_EXPECTED = "expected true or false (or yes/no, 1/0), found "
 FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".json": "jsonl", ".csv": "csv", ".tsv": "tsv", ".parquet": "parquet"}
 
 Progress = Callable[[str, float], None]
@@ -136,6 +188,7 @@ class LogScan:
 
     `attributes` are the unit attributes kept (as text) for segments and
     replay; the view names them `a_<index>` in the order given, see `attribute_column`.
+    `notes` says how files were read where the reading had to guess or skip.
     """
 
     def __init__(self, files: list[LogFile], columns: Mapping[str, str] | None = None,
@@ -143,10 +196,16 @@ class LogScan:
                  threads: int | None = None, memory_limit: str | None = None) -> None:
         if not files:
             raise LogError("no log files given")
-        self.files = files
         self.columns = {name: (columns or {}).get(name, name) for name in RECORD_FIELDS}
         self.attributes = list(dict.fromkeys(attributes))
         self.progress = progress
+        self.notes: list[str] = []
+        self._header_lines: dict[str, str] = {}  # CSV path -> its first line
+        self._delimiters: dict[str, str] = {}  # CSV path -> the delimiter its header line shows
+        self.files = [f for f in files if self._has_records(f)]
+        if not self.files:
+            raise LogError(f"no exposure records: every log file is empty ({', '.join(f.path for f in files[:3])}"
+                           f"{', …' if len(files) > 3 else ''})")
         self.con = duckdb.connect()
         self.con.execute("SET TimeZone = 'UTC'")
         self.con.execute("SET enable_progress_bar = true")  # progress is tracked for query_progress() ...
@@ -156,11 +215,13 @@ class LogScan:
             self.con.execute(f"SET threads = {int(threads)}")
         if memory_limit:
             self.con.execute(f"SET memory_limit = {_sql_text(memory_limit)}")
+        self.con.execute(_NORMALISE)
         self.present: set[str] = set()
+        self.times_as_text = False  # True when some file's ts is text or a number, so epoch times may occur
         self._csv_rejects: list[str] = []
         parts = []
         by_format: dict[str, list[LogFile]] = {}
-        for f in files:
+        for f in self.files:
             by_format.setdefault(f.format, []).append(f)
         for fmt, group in by_format.items():
             if fmt == "jsonl":
@@ -174,30 +235,66 @@ class LogScan:
     def attribute_column(self, name: str) -> str:
         return f"a_{self.attributes.index(name)}"
 
+    # -- files without records ---------------------------------------------------------------------
+
+    def _has_records(self, log: LogFile) -> bool:
+        """False, with a note, for an empty file or a CSV with only a header; keeps CSV header lines for later."""
+        if log.format == "parquet":
+            empty = Path(log.path).stat().st_size == 0
+        else:
+            opener = gzip.open if log.compressed else open
+            try:
+                with opener(log.path, "rt", encoding="utf-8-sig", newline="") as stream:
+                    if log.format in ("csv", "tsv"):
+                        header = stream.readline()
+                        if header.strip():
+                            self._header_lines[log.path] = header
+                        elif any(line.strip() for line in stream):
+                            raise LogError(f"{log.path}:1: empty header line; a CSV log starts with the column names")
+                    empty = not any(line.strip() for line in stream)
+            except (OSError, UnicodeDecodeError, EOFError) as exc:
+                raise LogError(f"{log.path}: cannot read ({exc})") from None
+        if empty:
+            what = "a header and no records" if log.path in self._header_lines else "empty"
+            self.notes.append(f"{log.path}: {what}; skipped")
+        return not empty
+
     # -- per-format SELECTs, each giving the same normalised columns ------------------------------
 
-    def _normalised(self, values: Mapping[str, str], kinds: Mapping[str, str], ts: str,
+    def _normalised(self, values: Mapping[str, str], kinds: Mapping[str, str], native: Iterable[str] = (),
                     broken: tuple[str, str] | None = None) -> str:
         """SELECT list from per-field text expressions and per-field type checks.
 
         `values[f]` is the field's value as text (NULL when absent), except
-        that `ts` and `forced` may keep a native TIMESTAMP or BOOLEAN type; `kinds[f]`
-        is NULL when the field's type is acceptable, else what was found; `ts`
-        is the time parsed as a UTC TIMESTAMP.
+        for the fields in `native`: a `ts` of a TIMESTAMP type or a `forced`
+        of BOOLEAN type, kept as they are. `kinds[f]` is NULL when the field's
+        value is acceptable, else what was found. Text times and flags are
+        read by the `_NORMALISE` macros, and checked here.
         `broken` is (kind, detail) for records that could not be parsed at all.
         """
+        kinds = dict(kinds)
+        if "ts" in native:
+            ts, epoch = f"CAST({values['ts']} AS TIMESTAMP)", "NULL::UTINYINT"
+        else:
+            self.times_as_text = True
+            ts, epoch = f"time_of({values['ts']})", f"time_epoch_unit({values['ts']})"
+            kinds["ts"] = f"CASE WHEN {ts} IS NULL THEN {_sql_text(TIME_EXPECTED)} || {values['ts']} END"
+        if "forced" in native:
+            forced = f"coalesce({values['forced']}, false)"
+        else:
+            forced = f"flag_of({values['forced']})"
+            kinds["forced"] = f"CASE WHEN {forced} IS NULL THEN {_sql_text(FLAG_EXPECTED)} || {values['forced']} END"
         problems = [broken] if broken else []
-        problems += [(f"CASE WHEN {values[n]} IS NULL THEN 'missing_field' END",
-                      f"'field ' || {_sql_text(repr(self.columns[n]))} || ' is missing'") for n in REQUIRED_FIELDS]
         problems += [(f"CASE WHEN {kinds[n]} IS NOT NULL THEN 'wrong_type' END",
                       f"'field ' || {_sql_text(repr(self.columns[n]))} || ': ' || {kinds[n]}")
                      for n in RECORD_FIELDS if n in kinds]
+        problems += [(f"CASE WHEN {values[n]} IS NULL THEN 'missing_field' END",
+                      f"'field ' || {_sql_text(repr(self.columns[n]))} || ' is missing'") for n in REQUIRED_FIELDS]
         problem = "coalesce(" + ", ".join(kind for kind, _ in problems) + ")"
         detail = "CASE " + " ".join(f"WHEN {kind} IS NOT NULL THEN {text}" for kind, text in problems) + " END"
-        select = [f"{problem} AS _problem", f"{detail} AS _detail", f"CAST({values['unit']} AS VARCHAR) AS unit"]
+        select = [f"{problem} AS _problem", f"{detail} AS _detail", f"{values['unit']} AS unit"]
         select += [f"{values[n]} AS {n}" for n in TEXT_FIELDS]
-        select.append(f"coalesce(TRY_CAST({values['forced']} AS BOOLEAN), false) AS forced")
-        select.append(f"{ts} AS ts")
+        select += [f"coalesce({forced}, false) AS forced", f"{ts} AS ts", f"{epoch} AS _ts_epoch"]
         select += [f"{values['a:' + a]} AS a_{i}" for i, a in enumerate(self.attributes)]
         return ", ".join(select)
 
@@ -208,38 +305,33 @@ class LogScan:
         index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in self.attributes])}
         values = {k: f"v[{i}]" for k, i in index.items()}
         types = {k: f"t[{i}]" for k, i in index.items()}
-        kinds = {
-            "unit": f"CASE WHEN {types['unit']} NOT IN ('VARCHAR', 'BIGINT', 'UBIGINT') "
-                    f"THEN 'expected a string or an integer, found ' || lower({types['unit']}) END",
-            "forced": f"CASE WHEN {types['forced']} NOT IN ('BOOLEAN', 'NULL') "
-                      f"THEN 'expected true or false, found ' || lower({types['forced']}) END",
-            "ts": f"CASE WHEN {types['ts']} <> 'VARCHAR' THEN 'expected an ISO-8601 time, found ' || lower({types['ts']}) "
-                  f"WHEN ts_value IS NULL THEN 'expected an ISO-8601 time, found ' || {values['ts']} END",
-        }
-        kinds.update({n: f"CASE WHEN {types[n]} NOT IN ('VARCHAR', 'NULL') "
+        numbers = "('BIGINT', 'UBIGINT', 'DOUBLE')"
+        values["unit"] = f"CASE WHEN {types['unit']} IN {numbers} THEN integer_text({values['unit']}) ELSE {values['unit']} END"
+        kinds = {"unit": f"CASE WHEN {types['unit']} NOT IN ('VARCHAR', 'NULL', 'BIGINT', 'UBIGINT', 'DOUBLE') "
+                         f"OR ({types['unit']} = 'DOUBLE' AND {values['unit']} IS NULL) "
+                         f"THEN 'expected a string or an integer, found ' || lower({types['unit']}) END"}
+        kinds.update({n: f"CASE WHEN {types[n]} NOT IN ('VARCHAR', 'NULL', 'BIGINT', 'UBIGINT') "
                          f"THEN 'expected a string, found ' || lower({types[n]}) END" for n in TEXT_FIELDS})
         cut_short = "starts_with(ltrim(line), '{') AND NOT ends_with(rtrim(line), '}')"
         broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
                   f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
-        select = self._normalised(values, kinds, "ts_value", broken)
+        select = self._normalised(values, kinds, broken=broken)
+        # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
         source = (f"read_csv({_file_list(group)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
-                  f"header=false, auto_detect=false, filename=true, store_rejects=true, "
+                  f"header=false, auto_detect=false, strict_mode=false, filename=true, store_rejects=true, "
                   f"rejects_table='rejects_jsonl_errors', rejects_scan='rejects_jsonl_scans')")
         self._csv_rejects.append("rejects_jsonl")
         return f"""
             SELECT filename AS _file, NULL::BIGINT AS _line, {select},
                    CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text
             FROM (
-                SELECT *, TRY_CAST(TRY_CAST(v[{index['ts']}] AS TIMESTAMPTZ) AT TIME ZONE 'UTC' AS TIMESTAMP) AS ts_value
+                SELECT filename, line, is_object,
+                       CASE WHEN is_object THEN json_extract_string(line, {paths}) END AS v,
+                       CASE WHEN is_object THEN json_type(line, {paths}) END AS t
                 FROM (
-                    SELECT filename, line, is_object,
-                           CASE WHEN is_object THEN json_extract_string(line, {paths}) END AS v,
-                           CASE WHEN is_object THEN json_type(line, {paths}) END AS t
-                    FROM (
-                        SELECT filename, line, CASE WHEN json_valid(line) THEN json_type(line) = 'OBJECT' ELSE false END AS is_object
-                        FROM {source}
-                        WHERE line IS NOT NULL AND trim(line) <> ''
-                    )
+                    SELECT filename, line, CASE WHEN json_valid(line) THEN json_type(line) = 'OBJECT' ELSE false END AS is_object
+                    FROM {source}
+                    WHERE line IS NOT NULL AND trim(line) <> ''
                 )
             )"""
 
@@ -259,37 +351,31 @@ class LogScan:
 
     def _typed_select(self, present: Mapping[str, str]) -> str:
         """Normalised columns from a typed source (CSV read as text, or Parquet)."""
-        values, kinds = {}, {}
-        native = {"ts": "TIMESTAMP", "forced": "BOOLEAN"}  # kept as they are: formatting them as text costs a lot
+        values, kinds, native = {}, {}, []
+        native_types = {"ts": "TIMESTAMP", "forced": "BOOLEAN"}  # kept as they are: formatting them as text costs a lot
         for name in RECORD_FIELDS:
             column = self.columns[name]
-            if column not in present:
+            kind = present.get(column)
+            if kind is None:
                 values[name] = "NULL::VARCHAR"
-            elif present[column].startswith(("VARCHAR", native.get(name, "VARCHAR"))):
+            elif name in native_types and kind.startswith(native_types[name]):
                 values[name] = _ident(column)
+                native.append(name)
+            elif kind == "VARCHAR":
+                values[name] = _ident(column)
+            elif name == "unit" and kind in ("DOUBLE", "FLOAT"):
+                values[name] = f"integer_text(CAST({_ident(column)} AS VARCHAR))"
+                kinds[name] = (f"CASE WHEN {_ident(column)} IS NOT NULL AND {values[name]} IS NULL "
+                               f"THEN 'expected a string or an integer, found ' || {_ident(column)} END")
             else:
                 values[name] = f"CAST({_ident(column)} AS VARCHAR)"
         for attr in self.attributes:
             values["a:" + attr] = f"CAST({_ident(attr)} AS VARCHAR)" if attr in present else "NULL::VARCHAR"
-        ts_type = present.get(self.columns["ts"], "")
-        if ts_type.startswith("TIMESTAMP"):
-            ts = f"CAST({_ident(self.columns['ts'])} AS TIMESTAMP)"
-        else:
-            text = values["ts"]
-            ts = f"TRY_CAST(TRY_CAST({text} AS TIMESTAMPTZ) AT TIME ZONE 'UTC' AS TIMESTAMP)"
-            kinds["ts"] = (f"CASE WHEN {text} IS NOT NULL AND {ts} IS NULL "
-                           f"THEN 'expected an ISO-8601 time, found ' || {text} END")
-        forced_type = present.get(self.columns["forced"], "")
-        if forced_type and forced_type != "BOOLEAN":
-            text = values["forced"]
-            kinds["forced"] = (f"CASE WHEN {text} IS NOT NULL AND TRY_CAST({text} AS BOOLEAN) IS NULL "
-                               f"THEN 'expected true or false, found ' || {text} END")
-        return self._normalised(values, kinds, ts)
+        return self._normalised(values, kinds, native)
 
     def _csv_select(self, log: LogFile, index: int) -> str:
-        delim = "\\t" if log.format == "tsv" else ","
-        options = f"delim=E'{delim}', quote='\"', escape='\"', header=true, auto_detect=false"
-        head = self._csv_header(log, delim)
+        delimiter, head = self._csv_layout(log)
+        options = f"delim={_sql_text(delimiter)}, quote='\"', escape='\"', header=true, auto_detect=false"
         columns = "{" + ", ".join(f"{_sql_text(c)}: 'VARCHAR'" for c in head) + "}"
         present = {c: "VARCHAR" for c in head}
         self._check_columns(present, log.path)
@@ -297,25 +383,49 @@ class LogScan:
         self._csv_rejects.append(name)
         source = (f"read_csv({_sql_text(log.path)}, {options}, columns={columns}, filename=true, "
                   f"store_rejects=true, rejects_table='{name}_errors', rejects_scan='{name}_scans')")
-        return f"SELECT filename AS _file, NULL::BIGINT AS _line, NULL AS _text, {self._typed_select(present)} FROM {source}"
+        fields = ", ".join(f"coalesce({_ident(c)}, '')" for c in head)
+        return (f"SELECT filename AS _file, NULL::BIGINT AS _line, {self._typed_select(present)}, "
+                f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({_sql_text(delimiter)}, {fields}), 300) END AS _text "
+                f"FROM {source}")
 
-    def _csv_header(self, log: LogFile, delim: str) -> list[str]:
-        opener = gzip.open if log.compressed else open
-        try:
-            with opener(log.path, "rt", encoding="utf-8", newline="") as stream:
-                first = stream.readline()
-        except (OSError, UnicodeDecodeError, EOFError) as exc:
-            raise LogError(f"{log.path}: cannot read ({exc})") from None
-        header = next(csv.reader([first], delimiter="\t" if delim == "\\t" else ","), [])
-        if not header or not any(header):
-            raise LogError(f"{log.path}:1: empty header line; a CSV log starts with the column names")
-        return header
+    def _csv_layout(self, log: LogFile) -> tuple[str, list[str]]:
+        """The delimiter and the column names, from the header line: the delimiter that yields the required columns.
+
+        The file's suffix gives the first guess (tab for .tsv, comma otherwise);
+        another delimiter is used, with a note, only when the header needs it.
+        """
+        line = self._header_lines[log.path]
+        default = "\t" if log.format == "tsv" else ","
+        candidates = [default] + [d for d in CSV_DELIMITERS if d != default]
+        split = {d: [name.strip() for name in next(csv.reader([line], delimiter=d), [])] for d in candidates}
+        required = [self.columns[n] for n in REQUIRED_FIELDS]
+        delimiter = next((d for d in candidates if all(r in split[d] for r in required)),
+                         max(candidates, key=lambda d: len(split[d])))
+        names = [name or f"column_{i + 1}" for i, name in enumerate(split[delimiter])]
+        repeated = next((n for n in names if names.count(n) > 1), None)
+        if repeated is not None:
+            raise LogError(f"{log.path}:1: column {repeated!r} appears twice in the header")
+        if delimiter != default:
+            self.notes.append(f"{log.path}: fields separated by {'tab' if delimiter == chr(9) else repr(delimiter)}")
+        self._delimiters[log.path] = delimiter
+        return delimiter, names
 
     def _parquet_select(self, group: list[LogFile]) -> str:
         source = f"read_parquet({_file_list(group)}, filename=true, file_row_number=true, union_by_name=true)"
         present = self._describe(source, group[0].path if len(group) == 1 else f"{len(group)} Parquet files")
         self._check_columns(present, group[0].path if len(group) == 1 else f"{group[0].path} (and others)")
-        return f"SELECT filename AS _file, file_row_number + 1 AS _line, NULL AS _text, {self._typed_select(present)} FROM {source}"
+        return (f"SELECT filename AS _file, file_row_number + 1 AS _line, NULL AS _text, {self._typed_select(present)} "
+                f"FROM {source}")
+
+    # -- how times were read -----------------------------------------------------------------------
+
+    def epoch_notes(self) -> list[str]:
+        """Which files had epoch numbers as `ts`, read in which unit (a second scan: call it only when some were)."""
+        rows = self._fetch("""
+            SELECT _file, _ts_epoch, count(*), min(ts), max(ts) FROM exposure_rows
+            WHERE _problem IS NULL AND _ts_epoch IS NOT NULL GROUP BY ALL ORDER BY 1, 2""")
+        return [f"{file}: ts read as epoch {EPOCH_UNITS[unit]} in {count:,} records "
+                f"({low:%Y-%m-%d %H:%M:%S} to {high:%Y-%m-%d %H:%M:%S} UTC)" for file, unit, count, low, high in rows]
 
     # -- running queries ---------------------------------------------------------------------------
 
@@ -347,7 +457,7 @@ class LogScan:
         try:
             return self.con.execute(sql).fetchall()
         except duckdb.Error as exc:
-            raise LogError(f"cannot read the logs: {_first_line(exc)}") from None
+            raise LogError(_read_error(exc)) from None
 
     def execute(self, sql: str, label: str = "scanning") -> None:
         self.query(sql, label)
@@ -378,7 +488,7 @@ class LogScan:
                 result.counts[kind] = result.counts.get(kind, 0) + 1
                 if sum(1 for ex in result.examples if ex.kind == kind) < EXAMPLES_PER_KIND:
                     result.examples.append(MalformedExample(kind, file, line, detail, text))
-        _locate_lines(result.examples, {f.path: f for f in self.files})
+        _locate_lines(result.examples, {f.path: f for f in self.files}, self._delimiters)
         result.examples.sort(key=lambda ex: (PROBLEM_KINDS.index(ex.kind), ex.file, ex.line or 0))
         return result
 
@@ -386,26 +496,49 @@ class LogScan:
         self.con.close()
 
 
-def _locate_lines(examples: list[MalformedExample], files: Mapping[str, LogFile]) -> None:
-    """Line numbers of JSON Lines examples, found by reading only as far as the last one."""
+def _locate_lines(examples: list[MalformedExample], files: Mapping[str, LogFile],
+                  delimiters: Mapping[str, str]) -> None:
+    """Line numbers of JSON Lines and CSV examples, found by reading each file only as far as its last example."""
     wanted: dict[str, dict[str, list[MalformedExample]]] = {}
     for ex in examples:
-        if ex.line is None and ex.text is not None and ex.file in files and files[ex.file].format == "jsonl":
+        if ex.line is None and ex.text is not None and ex.file in files and files[ex.file].format != "parquet":
             wanted.setdefault(ex.file, {}).setdefault(ex.text, []).append(ex)
     for path, by_text in wanted.items():
-        opener = gzip.open if files[path].compressed else open
         remaining = sum(len(v) for v in by_text.values())
-        with opener(path, "rb") as raw:
-            stream = io.TextIOWrapper(raw, encoding="utf-8", errors="replace", newline="\n")
+        with closing(_numbered_records(files[path], delimiters.get(path))) as records:
+            for number, text in records:
+                unplaced = next((ex for ex in by_text.get(text[:300], ()) if ex.line is None), None)
+                if unplaced is not None:
+                    unplaced.line = number
+                    remaining -= 1
+                    if remaining == 0:
+                        break
+
+
+def _numbered_records(log: LogFile, delimiter: str | None) -> Iterator[tuple[int, str]]:
+    """(first line number, text) of each record: a JSON line, or a CSV row's fields joined by `delimiter`."""
+    opener = gzip.open if log.compressed else open
+    with opener(log.path, "rb") as raw:
+        stream = io.TextIOWrapper(raw, encoding="utf-8-sig", errors="replace", newline="" if delimiter else "\n")
+        if delimiter is None:
             for number, line in enumerate(stream, start=1):
-                pending = by_text.get(line.rstrip("\r\n")[:300])
-                if pending:
-                    unplaced = next((ex for ex in pending if ex.line is None), None)
-                    if unplaced is not None:
-                        unplaced.line = number
-                        remaining -= 1
-                        if remaining == 0:
-                            break
+                yield number, line.rstrip("\r\n")
+            return
+        rows = csv.reader(stream, delimiter=delimiter)
+        next(rows, None)
+        start = rows.line_num + 1
+        for row in rows:
+            yield start, delimiter.join(row)
+            start = rows.line_num + 1
+
+
+def _read_error(exc: duckdb.Error) -> str:
+    """One line for an error DuckDB raised while scanning, naming the file when DuckDB does."""
+    file = re.search(r"^\s*file = (.+)$", str(exc), re.MULTILINE)
+    if file and "state machine" in str(exc):
+        return (f"{file.group(1).strip()}: cannot be read as CSV: its rows do not split consistently "
+                f"(line ends that mix CRLF and LF, or a quote left open)")
+    return f"cannot read the logs: {_first_line(exc)}"
 
 
 def _first_line(exc: BaseException) -> str:

@@ -158,7 +158,7 @@ class _Audit:
         self.threshold = threshold
         self.replay_configs = replay_configs
         self.replay_units = replay_units
-        self.notes: list[str] = []
+        self.notes: list[str] = list(scan.notes)
 
     def run(self) -> AuditResult:
         scan = self.scan
@@ -168,7 +168,7 @@ class _Audit:
         kept = [*(["config", "unit_type"] if self.replay_configs else []), *attrs]
         self._read_unit_arms(_Classifier(designs or [], layer_logged).outside, kept)
         census = scan.query("""
-            SELECT _problem, layer, experiment, arm, outside, sum(records), sum(repeats)
+            SELECT _problem, layer, experiment, arm, outside, sum(records), sum(repeats), bool_or(epoch_times)
             FROM unit_arms GROUP BY ALL""", "counting records")
         if designs is None:
             designs = self._designs_from_logs([row[1:4] for row in census if row[0] is None])
@@ -180,7 +180,7 @@ class _Audit:
         logged: dict[tuple[int, int], list[int]] = defaultdict(lambda: [0, 0])
         unknown = []
         total_records = 0
-        for problem, lay, experiment, arm, out_of_window, count, repeats in census:
+        for problem, lay, experiment, arm, out_of_window, count, repeats, _ in census:
             total_records += count
             if problem is not None:
                 problems[problem] += count
@@ -199,6 +199,9 @@ class _Audit:
                 totals[0] += count
                 totals[1] += repeats
         unknown = self._merge_unknown(unknown)
+        self.notes += _near_miss_notes(unknown, designs)
+        if any(row[-1] for row in census):
+            self.notes += scan.epoch_notes()
         malformed = scan.malformed(problems)
         if total_records and total_records == malformed.total:
             raise LogError(f"{scan.files[0].path}: no usable exposure record "
@@ -221,16 +224,17 @@ class _Audit:
         outside their experiment's dates are only counted: their rows have no unit.
         """
         values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
+        epoch_times = "bool_or(_ts_epoch IS NOT NULL)" if self.scan.times_as_text else "false"
         self.scan.execute(f"""
             CREATE TEMP TABLE unit_arms AS
             SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
             FROM (
                 SELECT _problem, layer, experiment, arm, outside, unit, count(*) AS records, min(ts) AS first_ts,
                        arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
-                       list(ts) FILTER (WHERE unit IS NOT NULL) AS times
+                       list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch_times} AS epoch_times
                 FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
                       FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
-                                   {values} AS kept
+                                   _ts_epoch, {values} AS kept
                             FROM exposure_rows))
                 GROUP BY _problem, layer, experiment, arm, outside, unit)""", "reading records")
 
@@ -464,6 +468,25 @@ class _Audit:
 
             segment.replay_checked = sum(1 for row in rows if inside(row))
             segment.replay_mismatched = sum(1 for row, _ in mismatched_rows if inside(row))
+
+
+def _near_miss_notes(unknown: list[UnknownRecords], designs: Sequence[Design]) -> list[str]:
+    """Unknown names that equal a known one but for case or surrounding spaces: names are compared exactly, so say so."""
+    def near(name: str, known: Iterable[str]) -> str | None:
+        return next((k for k in known if k != name and k.casefold() == name.strip().casefold()), None)
+
+    notes = []
+    for u in unknown:
+        if u.reason == "unknown_arm":
+            design = next(d for d in designs if d.experiment == u.experiment and (u.layer is None or d.layer == u.layer))
+            known, what = design.arms, f"arm {u.arm!r} of {u.experiment!r}"
+            closest = near(u.arm, known)
+        else:
+            closest, what = near(u.experiment, (d.experiment for d in designs)), f"experiment {u.experiment!r}"
+        if closest is not None:
+            notes.append(f"{what} ({u.records:,} records) is unknown; it matches {closest!r} but for case or spaces, "
+                         f"and names are compared exactly")
+    return notes
 
 
 def _diagnose(result: ExperimentResult, threshold: float) -> list[Cause]:

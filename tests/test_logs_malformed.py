@@ -16,7 +16,7 @@ BROKEN_LINES = {
     "missing_field": json.dumps({k: v for k, v in GOOD.items() if k != "arm"}),
     "wrong_type": json.dumps(dict(GOOD, forced="maybe")),
 }
-BROKEN_TS = json.dumps(dict(GOOD, ts=1762246800))
+BROKEN_TS = json.dumps(dict(GOOD, ts="yesterday"))  # epoch numbers are read: a word is not a time
 NULL_UNIT = json.dumps(dict(GOOD, unit=None))
 
 
