@@ -159,7 +159,7 @@ def _plant_noise(assigner: Assigner, rng: random.Random, day_list: list[date], l
                                                    assigner.version, False, qa_attrs), separators=(",", ":")))
                 counts["early_clock_records"] += 1
     broken = ['--- log rotated ---', '{"ts":"2026-11-05T10:00:00.000Z","unit":"L-000001","experiment":"shorter-lessons"}',
-              '{"ts":1762336800,"unit":"L-000002","unit_type":"learner","experiment":"shorter-lessons","arm":"control"}']
+              '{"ts":"last tuesday","unit":"L-000002","unit_type":"learner","experiment":"shorter-lessons","arm":"control"}']
     for text in broken:
         d = rng.randrange(len(day_list))
         lines[d].insert(rng.randrange(len(lines[d]) + 1), text)
