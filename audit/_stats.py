@@ -144,3 +144,35 @@ def proportion_test(hits: int, total: int, rest_hits: int, rest_total: int) -> f
         return 1.0
     table = [[hits, total - hits], [rest_hits, rest_total - rest_hits]]
     return float(stats.chi2_contingency(table, correction=False)[1])
+
+
+DEFAULT_CONCENTRATION = 1000.0  # prior share SD about 1.6 points at 50/50: tuned to the small imbalances SRM is about
+
+
+def sequential_pvalues(daily: Sequence[Sequence[int]], shares: Sequence[float],
+                       concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
+    """Anytime-valid p-values of the split after each day, safe to look at every day.
+
+    A chi-square test repeated every day crosses any threshold by chance more
+    often than the threshold says. This test does not: it is the Bayes factor
+    of a Dirichlet-multinomial alternative centred on the design (prior
+    Dirichlet(concentration x shares)) against the design's multinomial, and
+    its running minimum of 1/BF is a p-value valid at every look (Ville's
+    inequality; the construction follows Lindon & Malek, "Anytime-valid
+    inference for multinomial count data", NeurIPS 2022). `daily` holds the
+    counts of units new each day, per arm.
+    """
+    kept = [i for i, s in enumerate(shares) if s > 0]
+    alphas = [concentration * shares[i] for i in kept]
+    logs = [math.log(shares[i]) for i in kept]
+    running = [0] * len(kept)
+    best, out = 1.0, []
+    for counts in daily:
+        running = [r + counts[i] for r, i in zip(running, kept)]
+        n = sum(running)
+        log_bf = math.lgamma(concentration) - math.lgamma(concentration + n)
+        for a, x, log_share in zip(alphas, running, logs):
+            log_bf += math.lgamma(a + x) - math.lgamma(a) - x * log_share
+        best = min(best, math.exp(-log_bf) if log_bf > -700 else 1.0)
+        out.append(best)
+    return out
