@@ -70,12 +70,11 @@ _NORMALISE = """
     CREATE TEMP MACRO epoch_unit(n) AS CASE WHEN n < 1e11 THEN 0 WHEN n < 1e14 THEN 1 WHEN n < 1e17 THEN 2
         WHEN n < 1e20 THEN 3 END;
     CREATE TEMP MACRO epoch_time(n) AS make_timestamp(CAST(n * [1e6, 1e3, 1, 1e-3][epoch_unit(n) + 1] AS BIGINT));
-    CREATE TEMP MACRO time_of(t) AS coalesce(iso_time(t), iso_time(upper(trim(t))), epoch_time(epoch_number(trim(t))));
-    CREATE TEMP MACRO time_epoch_unit(t) AS CASE WHEN iso_time(t) IS NULL THEN epoch_unit(epoch_number(trim(t))) END;
-    CREATE TEMP MACRO flag_of(t) AS CASE
-        WHEN t IS NULL OR trim(t) = '' THEN false
-        WHEN lower(trim(t)) IN ('true', 't', 'yes', 'y', '1') THEN true
-        WHEN lower(trim(t)) IN ('false', 'f', 'no', 'n', '0') THEN false END;
+    CREATE TEMP MACRO time_of(t) AS CASE WHEN contains(t, '-')
+        THEN coalesce(iso_time(t), iso_time(upper(trim(t)))) ELSE epoch_time(epoch_number(trim(t))) END;
+    CREATE TEMP MACRO time_epoch_unit(t) AS CASE WHEN NOT contains(t, '-') THEN epoch_unit(epoch_number(trim(t))) END;
+    CREATE TEMP MACRO flag_of(t) AS coalesce(TRY_CAST(t AS BOOLEAN),
+        CASE WHEN t IS NULL OR trim(t) = '' THEN false ELSE TRY_CAST(trim(t) AS BOOLEAN) END);
     CREATE TEMP MACRO integer_text(t) AS CASE
         WHEN regexp_full_match(t, '-?[0-9]+') THEN t
         WHEN TRY_CAST(t AS DOUBLE) = trunc(TRY_CAST(t AS DOUBLE)) AND abs(TRY_CAST(t AS DOUBLE)) < 9007199254740992
@@ -261,28 +260,32 @@ class LogScan:
 
     # -- per-format SELECTs, each giving the same normalised columns ------------------------------
 
-    def _normalised(self, values: Mapping[str, str], kinds: Mapping[str, str], native: Iterable[str] = (),
-                    broken: tuple[str, str] | None = None) -> str:
-        """SELECT list from per-field text expressions and per-field type checks.
+    def _normalised(self, source: str, values: Mapping[str, str], kinds: Mapping[str, str],
+                    native: Iterable[str] = (), broken: tuple[str, str] | None = None, extra: str = "") -> str:
+        """A SELECT of the normalised columns over `source`, from per-field text expressions and type checks.
 
         `values[f]` is the field's value as text (NULL when absent), except
         for the fields in `native`: a `ts` of a TIMESTAMP type or a `forced`
         of BOOLEAN type, kept as they are. `kinds[f]` is NULL when the field's
         value is acceptable, else what was found. Text times and flags are
-        read by the `_NORMALISE` macros, and checked here.
-        `broken` is (kind, detail) for records that could not be parsed at all.
+        read once, by the `_NORMALISE` macros in an inner SELECT, and checked here.
+        `broken` is (kind, detail) for records that could not be parsed at all;
+        `extra` adds columns to the outer SELECT (it may use `_problem`).
         """
         kinds = dict(kinds)
+        inner = []
         if "ts" in native:
             ts, epoch = f"CAST({values['ts']} AS TIMESTAMP)", "NULL::UTINYINT"
         else:
             self.times_as_text = True
-            ts, epoch = f"time_of({values['ts']})", f"time_epoch_unit({values['ts']})"
+            inner += [f"time_of({values['ts']}) AS _ts_value", f"time_epoch_unit({values['ts']}) AS _ts_epoch"]
+            ts, epoch = "_ts_value", "_ts_epoch"
             kinds["ts"] = f"CASE WHEN {ts} IS NULL THEN {_sql_text(TIME_EXPECTED)} || {values['ts']} END"
         if "forced" in native:
             forced = f"coalesce({values['forced']}, false)"
         else:
-            forced = f"flag_of({values['forced']})"
+            inner.append(f"flag_of({values['forced']}) AS _forced_value")
+            forced = "_forced_value"
             kinds["forced"] = f"CASE WHEN {forced} IS NULL THEN {_sql_text(FLAG_EXPECTED)} || {values['forced']} END"
         problems = [broken] if broken else []
         problems += [(f"CASE WHEN {kinds[n]} IS NOT NULL THEN 'wrong_type' END",
@@ -296,7 +299,10 @@ class LogScan:
         select += [f"{values[n]} AS {n}" for n in TEXT_FIELDS]
         select += [f"coalesce({forced}, false) AS forced", f"{ts} AS ts", f"{epoch} AS _ts_epoch"]
         select += [f"{values['a:' + a]} AS a_{i}" for i, a in enumerate(self.attributes)]
-        return ", ".join(select)
+        if extra:
+            select.append(extra)
+        source = f"(SELECT *, {', '.join(inner)} FROM {source})" if inner else source
+        return f"SELECT {', '.join(select)} FROM {source}"
 
     def _jsonl_select(self, group: list[LogFile]) -> str:
         self.present.update(RECORD_FIELDS)  # JSON Lines have no header: any field may be there
@@ -305,35 +311,31 @@ class LogScan:
         index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in self.attributes])}
         values = {k: f"v[{i}]" for k, i in index.items()}
         types = {k: f"t[{i}]" for k, i in index.items()}
-        numbers = "('BIGINT', 'UBIGINT', 'DOUBLE')"
-        values["unit"] = f"CASE WHEN {types['unit']} IN {numbers} THEN integer_text({values['unit']}) ELSE {values['unit']} END"
-        kinds = {"unit": f"CASE WHEN {types['unit']} NOT IN ('VARCHAR', 'NULL', 'BIGINT', 'UBIGINT', 'DOUBLE') "
-                         f"OR ({types['unit']} = 'DOUBLE' AND {values['unit']} IS NULL) "
+        values["unit"] = f"CASE WHEN {types['unit']} = 'VARCHAR' THEN {values['unit']} ELSE integer_text({values['unit']}) END"
+        kinds = {"unit": f"CASE WHEN {types['unit']} <> 'NULL' AND {values['unit']} IS NULL "
                          f"THEN 'expected a string or an integer, found ' || lower({types['unit']}) END"}
         kinds.update({n: f"CASE WHEN {types[n]} NOT IN ('VARCHAR', 'NULL', 'BIGINT', 'UBIGINT') "
                          f"THEN 'expected a string, found ' || lower({types[n]}) END" for n in TEXT_FIELDS})
         cut_short = "starts_with(ltrim(line), '{') AND NOT ends_with(rtrim(line), '}')"
         broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
                   f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
-        select = self._normalised(values, kinds, broken=broken)
         # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
         source = (f"read_csv({_file_list(group)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
                   f"header=false, auto_detect=false, strict_mode=false, filename=true, store_rejects=true, "
                   f"rejects_table='rejects_jsonl_errors', rejects_scan='rejects_jsonl_scans')")
         self._csv_rejects.append("rejects_jsonl")
-        return f"""
-            SELECT filename AS _file, NULL::BIGINT AS _line, {select},
-                   CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text
+        parsed = f"""(
+            SELECT filename, line, is_object,
+                   CASE WHEN is_object THEN json_extract_string(line, {paths}) END AS v,
+                   CASE WHEN is_object THEN json_type(line, {paths}) END AS t
             FROM (
-                SELECT filename, line, is_object,
-                       CASE WHEN is_object THEN json_extract_string(line, {paths}) END AS v,
-                       CASE WHEN is_object THEN json_type(line, {paths}) END AS t
-                FROM (
-                    SELECT filename, line, CASE WHEN json_valid(line) THEN json_type(line) = 'OBJECT' ELSE false END AS is_object
-                    FROM {source}
-                    WHERE line IS NOT NULL AND trim(line) <> ''
-                )
-            )"""
+                SELECT filename, line, CASE WHEN json_valid(line) THEN json_type(line) = 'OBJECT' ELSE false END AS is_object
+                FROM {source}
+                WHERE line IS NOT NULL AND trim(line) <> ''
+            )
+        )"""
+        extra = "filename AS _file, NULL::BIGINT AS _line, CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text"
+        return self._normalised(parsed, values, kinds, broken=broken, extra=extra)
 
     def _describe(self, source: str, where: str) -> dict[str, str]:
         try:
@@ -349,8 +351,8 @@ class LogScan:
                                f"(columns: {', '.join(present)}){hint}")
         self.present.update(n for n in RECORD_FIELDS if self.columns[n] in present)
 
-    def _typed_select(self, present: Mapping[str, str]) -> str:
-        """Normalised columns from a typed source (CSV read as text, or Parquet)."""
+    def _typed_select(self, source: str, present: Mapping[str, str], extra: str) -> str:
+        """The normalised SELECT over a typed source (CSV read as text, or Parquet)."""
         values, kinds, native = {}, {}, []
         native_types = {"ts": "TIMESTAMP", "forced": "BOOLEAN"}  # kept as they are: formatting them as text costs a lot
         for name in RECORD_FIELDS:
@@ -371,7 +373,7 @@ class LogScan:
                 values[name] = f"CAST({_ident(column)} AS VARCHAR)"
         for attr in self.attributes:
             values["a:" + attr] = f"CAST({_ident(attr)} AS VARCHAR)" if attr in present else "NULL::VARCHAR"
-        return self._normalised(values, kinds, native)
+        return self._normalised(source, values, kinds, native, extra=extra)
 
     def _csv_select(self, log: LogFile, index: int) -> str:
         delimiter, head = self._csv_layout(log)
@@ -384,9 +386,9 @@ class LogScan:
         source = (f"read_csv({_sql_text(log.path)}, {options}, columns={columns}, filename=true, "
                   f"store_rejects=true, rejects_table='{name}_errors', rejects_scan='{name}_scans')")
         fields = ", ".join(f"coalesce({_ident(c)}, '')" for c in head)
-        return (f"SELECT filename AS _file, NULL::BIGINT AS _line, {self._typed_select(present)}, "
-                f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({_sql_text(delimiter)}, {fields}), 300) END AS _text "
-                f"FROM {source}")
+        extra = (f"filename AS _file, NULL::BIGINT AS _line, "
+                 f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({_sql_text(delimiter)}, {fields}), 300) END AS _text")
+        return self._typed_select(source, present, extra)
 
     def _csv_layout(self, log: LogFile) -> tuple[str, list[str]]:
         """The delimiter and the column names, from the header line: the delimiter that yields the required columns.
@@ -414,8 +416,7 @@ class LogScan:
         source = f"read_parquet({_file_list(group)}, filename=true, file_row_number=true, union_by_name=true)"
         present = self._describe(source, group[0].path if len(group) == 1 else f"{len(group)} Parquet files")
         self._check_columns(present, group[0].path if len(group) == 1 else f"{group[0].path} (and others)")
-        return (f"SELECT filename AS _file, file_row_number + 1 AS _line, NULL AS _text, {self._typed_select(present)} "
-                f"FROM {source}")
+        return self._typed_select(source, present, "filename AS _file, file_row_number + 1 AS _line, NULL AS _text")
 
     # -- how times were read -----------------------------------------------------------------------
 
