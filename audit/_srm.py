@@ -264,10 +264,16 @@ class _Audit:
     def _designs_from_logs(self, seen_rows: list[tuple]) -> list[Design]:
         """The designs of --expect: every (layer, experiment) seen in the logs, with the arms seen."""
         seen: dict[tuple[str, str], set[str]] = defaultdict(set)
-        known = {d.experiment: d for d in designs_from_config(self.config)} if self.config is not None else {}
+        known = {d.experiment: d.layer for d in designs_from_config(self.config)} if self.config is not None else {}
+        logged_layers: dict[str, set[str]] = defaultdict(set)
+        for lay, experiment, _ in seen_rows:
+            if lay is not None:
+                logged_layers[experiment].add(lay)
+        for experiment, layers in logged_layers.items():
+            if len(layers) == 1:  # records without a layer (files that do not log it) join the one layer logged
+                known.setdefault(experiment, next(iter(layers)))
         for lay, experiment, arm in seen_rows:
-            layer = known[experiment].layer if experiment in known else (lay or "-")
-            seen[(layer, experiment)].add(arm)
+            seen[(known.get(experiment) or lay or "-", experiment)].add(arm)
         return designs_from_expectation({k: sorted(v) for k, v in seen.items()}, self.expectation)
 
     @staticmethod
