@@ -19,8 +19,8 @@ same way for every format:
   fraction of a second, lower-case `t`/`z`, or a plain date (midnight UTC);
   or a number of seconds, milliseconds, microseconds or nanoseconds since
   1970, told apart by magnitude (below 10^11 seconds, below 10^14
-  milliseconds, below 10^17 microseconds, below 10^20 nanoseconds), noted
-  per file in `LogScan.notes` once counted (see `epoch_notes`).
+  milliseconds, below 10^17 microseconds, below 10^20 nanoseconds); which
+  unit was read in which file is said by `LogScan.epoch_notes`.
 - `forced`: true/false, t/f, yes/no, y/n, 1/0 (any case; a JSON boolean or
   number, or text); empty or absent is false.
 - `unit` and the other names: a JSON or Parquet integer is read in
@@ -30,7 +30,9 @@ same way for every format:
   as "Control" or "control " is an unknown arm, reported as such.
 - CSV: the delimiter (`,` `;` tab `|`) is taken from the header line, a
   UTF-8 byte order mark is skipped, CRLF and quoted fields are read;
-  column names are trimmed. JSON Lines: a byte order mark, CRLF, mixed
+  column names are trimmed. A CSV whose lines end in both CRLF and LF
+  stops the run with an error naming the file: DuckDB's lenient CSV mode
+  would read it, but would also drop extra columns without a word. JSON Lines: a byte order mark, CRLF, mixed
   line ends and blank lines are fine.
 - An empty file, or a CSV with a header and no rows, is skipped with a note.
 

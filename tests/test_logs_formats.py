@@ -259,6 +259,14 @@ def test_lines_ending_in_crlf_and_lf_in_one_json_lines_file(tmp_path):
     assert result.malformed.total == 0 and counts_of(result) == exp_a(records)
 
 
+def test_csv_lines_ending_in_crlf_and_lf_is_an_error_naming_the_file(tmp_path):
+    rows = [{"ts": "2026-11-04T09:00:00Z", "unit": f"U-{n}", "experiment": "exp-a", "arm": "left"} for n in range(4)]
+    lines = csv_text(rows, ["ts", "unit", "experiment", "arm"], newline="\r\n").split("\r\n")
+    path = write_text(tmp_path / "mixed.csv", "\r\n".join(lines[:3]) + "\n" + "\n".join(lines[3:]))
+    got = CliRunner().invoke(app, ["srm", str(path), "--expect", "50,50", "--quiet"])
+    assert got.exit_code == 2 and f"{path}: cannot be read as CSV" in got.stderr
+
+
 def test_files_with_different_columns_are_united_by_name(tmp_path):
     records = invented_records(seed=37)
     half = len(records) // 2
