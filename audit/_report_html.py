@@ -55,6 +55,7 @@ svg .ok { fill:var(--pine); stroke:var(--pine); }
 svg .bad { fill:var(--ember); stroke:var(--ember); }
 svg .thr { stroke:var(--ember); stroke-width:1.5; stroke-dasharray:3 3; }
 svg .curve { fill:none; stroke:var(--ink); stroke-width:2; }
+svg .curve.anytime { stroke:var(--gold); stroke-dasharray:2 4; }
 details { margin:6px 0; }
 summary { cursor:pointer; color:var(--muted); }
 .quiet { color:var(--muted); font-size:13px; }
@@ -113,8 +114,9 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
     if not days:
         return ""
     heights = [-math.log10(max(d.cumulative_p, 1e-300)) for d in days]
+    anytime = [-math.log10(max(d.sequential_p, 1e-300)) for d in days]
     limit = -math.log10(threshold)
-    top_value = max(max(heights), limit) * 1.15
+    top_value = max(max(heights), max(anytime), limit) * 1.15
     left, plot_w, plot_h, top = 48, 380, 170, 16
     width, height = left + plot_w + 20, top + plot_h + 44
     step = plot_w / max(len(days) - 1, 1)
@@ -130,6 +132,9 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
                      if exponent else f'<text x="{left - 6}" y="{y(0) + 4:.1f}" text-anchor="end">1</text>')
     parts.append(f'<line class="thr" x1="{left}" y1="{y(limit):.1f}" x2="{left + plot_w}" y2="{y(limit):.1f}"/>')
     parts.append(f'<text x="{left + plot_w}" y="{y(limit) - 5:.1f}" text-anchor="end">threshold {threshold:g}</text>')
+    anytime_points = " ".join(f"{x(i):.1f},{y(h):.1f}" for i, h in enumerate(anytime))
+    parts.append(f'<polyline class="curve anytime" points="{anytime_points}"><title>anytime-valid p-value, '
+                 f'safe to read every day: {_p(days[-1].sequential_p)} on the last day</title></polyline>')
     points = " ".join(f"{x(i):.1f},{y(h):.1f}" for i, h in enumerate(heights))
     parts.append(f'<polyline class="curve" points="{points}"/>')
     for i, (day, h) in enumerate(zip(days, heights)):
@@ -143,6 +148,9 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
     parts.append("</svg>")
     first = (f"; first below the threshold on <b>{result.first_srm_day.isoformat()}</b>"
              if result.first_srm_day else "")
+    first += (f"; dotted: the anytime-valid test, safe to read daily"
+              + (f", below the threshold on <b>{result.first_sequential_srm_day.isoformat()}</b>"
+                 if result.first_sequential_srm_day else ""))
     return f'<figure><figcaption>cumulative p-value by day (log scale){first}</figcaption>{"".join(parts)}</figure>'
 
 

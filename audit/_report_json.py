@@ -52,8 +52,12 @@ def experiment_dict(result: ExperimentResult) -> dict[str, Any]:
         "replay_mismatch_share": result.replay_mismatch_share,
         "replay_examples": result.replay_examples,
         "first_srm_day": result.first_srm_day.isoformat() if result.first_srm_day else None,
+        "sequential_p_value": result.sequential_p_value,
+        "first_sequential_srm_day": (result.first_sequential_srm_day.isoformat()
+                                     if result.first_sequential_srm_day else None),
         "days": [{"day": d.day.isoformat(), "new_units": dict(zip(names, d.arm_units)), "p_value": d.p_value,
-                  "cumulative_p_value": d.cumulative_p} for d in result.days],
+                  "cumulative_p_value": d.cumulative_p, "sequential_p_value": d.sequential_p}
+                 for d in result.days],
         "segments": [_segment(s, names) for s in result.segments],
         "without_worst_segment": None if result.without_worst is None else {
             "left_out": result.without_worst.by, "units": result.without_worst.units,

@@ -30,6 +30,10 @@ def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     lines += _table(["arm", "units", "observed", "expected", "ratio", "excess", "records", "per unit"], rows)
     if result.first_srm_day:
         lines.append(f"    cumulative test first below {threshold:g} on {result.first_srm_day.isoformat()}")
+    if result.days:
+        since = (f", first below {threshold:g} on {result.first_sequential_srm_day.isoformat()}"
+                 if result.first_sequential_srm_day else f", not below {threshold:g}")
+        lines.append(f"    anytime-valid test (safe to read daily): p = {_p(result.sequential_p_value)}{since}")
     if result.segments:
         lines.append("    segments, worst first (p adjusted by Holm over all segments tested):")
         seg_rows = [[s.label, f"{s.units:,}", _p(s.p_value), _p(s.p_adjusted), "yes" if s.srm else "",

@@ -325,6 +325,10 @@ class _Audit:
         result.days = self._days(index, design)
         crossing = _stats.first_crossing([d.cumulative_p for d in result.days], self.threshold)
         result.first_srm_day = result.days[crossing].day if crossing is not None else None
+        if result.days:
+            result.sequential_p_value = result.days[-1].sequential_p
+            crossing = _stats.first_crossing([d.sequential_p for d in result.days], self.threshold)
+            result.first_sequential_srm_day = result.days[crossing].day if crossing is not None else None
         self._segments(index, design, result, counts)
         self._replay(index, design, result)
         result.causes = _diagnose(result, self.threshold)
@@ -347,8 +351,9 @@ class _Audit:
         days = [first + timedelta(n) for n in range((last - first).days + 1)]
         daily = [by_day.get(d, [0] * len(design.arms)) for d in days]
         cumulative = _stats.cumulative_fits(daily, design.shares)
-        return [DayResult(d, counts, _stats.chi_square_fit(counts, design.shares).pvalue, fit.pvalue)
-                for d, counts, fit in zip(days, daily, cumulative)]
+        sequential = _stats.sequential_pvalues(daily, design.shares)
+        return [DayResult(d, counts, _stats.chi_square_fit(counts, design.shares).pvalue, fit.pvalue, anytime)
+                for d, counts, fit, anytime in zip(days, daily, cumulative, sequential)]
 
     def _segments(self, index: int, design: Design, result: ExperimentResult, counts: list[int]) -> None:
         scan = self.scan
@@ -533,7 +538,8 @@ def _diagnose(result: ExperimentResult, threshold: float) -> list[Cause]:
             f"an assignment that changes over time, or a unit id shared by several people"))
     if result.outside_window_records:
         causes.append(Cause("outside_window",
-            f"{result.outside_window_records:,} records fall outside the experiment's dates (left out)"))
+            f"{result.outside_window_records:,} record{'s' if result.outside_window_records != 1 else ''} "
+            f"{'fall' if result.outside_window_records != 1 else 'falls'} outside the experiment's dates (left out)"))
     if result.srm and not causes:
         causes.append(Cause("unexplained",
             "the split is off but no segment, arm replay, duplicate or two-arm pattern explains it; "

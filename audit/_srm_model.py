@@ -71,6 +71,7 @@ class DayResult:
     arm_units: list[int]  # units first exposed that day
     p_value: float  # that day's new units alone
     cumulative_p: float  # every unit up to and including that day
+    sequential_p: float = 1.0  # anytime-valid: safe to read every day
 
 
 @dataclass
@@ -117,6 +118,8 @@ class ExperimentResult:
     outside_window_records: int
     days: list[DayResult] = field(default_factory=list)
     first_srm_day: date | None = None
+    sequential_p_value: float = 1.0
+    first_sequential_srm_day: date | None = None
     segments: list[SegmentResult] = field(default_factory=list)
     without_worst: SegmentResult | None = None
     localisation: Localisation | None = None

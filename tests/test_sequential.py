@@ -57,3 +57,32 @@ def test_a_real_mismatch_is_found():
 
 def test_arms_with_zero_share_are_left_out():
     assert sequential_pvalues([[10, 0, 10]], [0.5, 0.0, 0.5]) == sequential_pvalues([[10, 10]], [0.5, 0.5])
+
+
+def test_audit_reports_the_anytime_valid_test_per_day(tmp_path):
+    # End to end: daily counts drift away from 50/50; the report carries the sequential
+    # p-values, never rising, and the last one equals the pure function on the same counts.
+    import json
+    import subprocess
+    import sys
+    from datetime import date, timedelta
+
+    rng = random.Random(5)
+    lines, daily = [], []
+    for day in range(10):
+        counts = [0, 0]
+        for i in range(600):
+            arm = 0 if rng.random() < (0.5 if day < 4 else 0.56) else 1
+            counts[arm] += 1
+            ts = (date(2026, 11, 3) + timedelta(day)).isoformat() + "T12:00:00Z"
+            lines.append(json.dumps({"ts": ts, "unit": f"d{day}-{i}", "unit_type": "u", "layer": "l",
+                                     "experiment": "e", "arm": ["a", "b"][arm], "forced": False}))
+        daily.append(counts)
+    log = tmp_path / "x.jsonl"
+    log.write_text("\n".join(lines) + "\n")
+    done = subprocess.run([sys.executable, "-m", "audit", "srm", str(log), "--expect", "a=50,b=50",
+                           "--format", "json", "--quiet"], capture_output=True, text=True)
+    result = json.loads(done.stdout)["results"][0]
+    series = [d["sequential_p_value"] for d in result["days"]]
+    assert all(b <= a for a, b in zip(series, series[1:]))
+    assert math.isclose(result["sequential_p_value"], sequential_pvalues(daily, [0.5, 0.5])[-1], rel_tol=1e-9)
