@@ -175,9 +175,9 @@ class _Exposer:
             "config": assignment.config,
             "forced": got.forced,
         }
-        for key, value in assignment.attrs.items():
-            if key not in RECORD_FIELDS:
-                record[key] = value
+        for attr, value in assignment.attrs.items():
+            if attr not in RECORD_FIELDS:
+                record[attr] = value
         try:
             self.sink.write(record)
         except Exception:

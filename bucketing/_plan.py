@@ -35,10 +35,10 @@ def attribute_text(value: Any) -> str:
 
 def version_key(text: str) -> tuple[int, ...] | None:
     """A dotted version for comparison, trailing zeros dropped so that 7.2 == 7.2.0."""
-    parts = parse_version(text)
-    if parts is None:
+    parsed = parse_version(text)
+    if parsed is None:
         return None
-    parts = list(parts)
+    parts = list(parsed)
     while len(parts) > 1 and parts[-1] == 0:
         parts.pop()
     return tuple(parts)
@@ -52,8 +52,8 @@ class Condition:
     def __init__(self, attr: str, spec: Any) -> None:
         self.attr = attr
         self.values: frozenset[str] | None = None
-        self.compare = None
-        self.version = None
+        self.compare: Callable[[Any, Any], bool] = operator.eq
+        self.version: tuple[int, ...] | None = None
         if isinstance(spec, list):
             self.values = frozenset(attribute_text(v) for v in spec)
         else:
@@ -88,7 +88,7 @@ class ExperimentPlan:
         self.prefix = experiment_salt(layer, exp) + ":"
         edges, total = [], 0
         for arm in exp.arms:
-            total += hundredths(arm.weight)
+            total += hundredths(arm.weight) or 0  # validated: at most two decimals
             edges.append(total)
         self.thresholds = tuple(edges)
         self.arms = tuple(arm.name for arm in exp.arms)

@@ -62,10 +62,10 @@ def _findings(config: Config) -> Iterator[tuple[str, tuple, str]]:
                        f"experiment unit {exp.unit!r} differs from layer {layer.name!r} unit {layer.unit!r}; "
                        "move the experiment to a layer of that unit type")
             arm_names = {arm.name for arm in exp.arms}
-            for unit, arm in exp.overrides.items():
-                if arm not in arm_names:
+            for unit, forced_arm in exp.overrides.items():
+                if forced_arm not in arm_names:
                     yield ("override-unknown-arm", at + ("overrides", unit),
-                           f"override for {unit!r} names arm {arm!r}; the arms are {sorted(arm_names)}")
+                           f"override for {unit!r} names arm {forced_arm!r}; the arms are {sorted(arm_names)}")
                 elif exp.status == "running":
                     other = forced_in.setdefault(unit, exp.name)
                     if other != exp.name:
@@ -79,13 +79,13 @@ def _findings(config: Config) -> Iterator[tuple[str, tuple, str]]:
                     param_layers[name].append((layer.name, at + ("arms", ai, "params", name)))
         yield from _overlaps(layer, li, owners)
     for name, places in param_layers.items():
-        layers = sorted({layer for layer, _ in places})
-        if len(layers) > 1:
+        setters = sorted({owner for owner, _ in places})
+        if len(setters) > 1:
             first = places[0][0]
-            for layer, path in places:
-                if layer != first:
+            for setter, path in places:
+                if setter != first:
                     yield ("param-two-layers", path,
-                           f"parameter {name!r} is set in layers {layers}; a parameter belongs to one layer, "
+                           f"parameter {name!r} is set in layers {setters}; a parameter belongs to one layer, "
                            "or the experiments of those layers interact")
                     break
 
