@@ -222,23 +222,19 @@ class _Audit:
         exactly (same unit, arm and time), and its first exposure in that arm:
         the time and the `kept` columns then. Malformed records and records
         outside their experiment's dates are only counted: their rows have no unit.
-        Each kept column is its own `arg_min`, cheaper than one over a list of
-        them; two records of a unit and arm at the same first time, with
-        different attributes, are exact repeats, and either one's values may be kept.
         """
-        first_kept = "".join(f", arg_min({c}, ts) AS {c}" for c in kept)
-        kept_columns = "".join(f", {c}" for c in kept)
+        values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
         epoch_times = "bool_or(_ts_epoch IS NOT NULL)" if self.scan.times_as_text else "false"
         self.scan.execute(f"""
             CREATE TEMP TABLE unit_arms AS
             SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
             FROM (
                 SELECT _problem, layer, experiment, arm, outside, unit, count(*) AS records, min(ts) AS first_ts,
-                       bool_or(forced) AS forced{first_kept},
+                       arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
                        list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch_times} AS epoch_times
                 FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
                       FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
-                                   _ts_epoch{kept_columns}
+                                   _ts_epoch, {values} AS kept
                             FROM exposure_rows))
                 GROUP BY _problem, layer, experiment, arm, outside, unit)""", "reading records")
 
@@ -248,15 +244,15 @@ class _Audit:
         A unit seen in several arms is left out of every count, so which of
         them comes first when two exposures share their time does not matter.
         """
-        first_kept = "".join(f", arg_min({c}, first_ts) AS {c}" for c in kept)
-        kept_columns = "".join(f", {c}" for c in kept)
         self.scan.execute(f"""
             CREATE TEMP TABLE unit_rows AS
-            SELECT *, arm_low <> arm_high AS multi
+            SELECT * EXCLUDE (first_kept), arm_low <> arm_high AS multi
+                   {''.join(f', first_kept[{i + 1}] AS {c}' for i, c in enumerate(kept))}
             FROM (
                 SELECT exp, unit, min(first_ts) AS first_ts, arg_min(arm, first_ts) AS arm,
-                       min(arm) AS arm_low, max(arm) AS arm_high, bool_or(forced) AS forced{first_kept}
-                FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, first_ts, forced{kept_columns}
+                       arg_min(first_kept, first_ts) AS first_kept, min(arm) AS arm_low, max(arm) AS arm_high,
+                       bool_or(forced) AS forced
+                FROM (SELECT {classify.experiment} AS exp, {classify.arm} AS arm, unit, first_ts, first_kept, forced
                       FROM unit_arms WHERE unit IS NOT NULL)
                 WHERE arm IS NOT NULL
                 GROUP BY exp, unit)""", "counting units")
