@@ -26,6 +26,7 @@ CONFIG_SUFFIXES = (".yaml", ".yml")
 
 PathKey = tuple[Any, ...]
 _PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
+_MERGE_TAG = "tag:yaml.org,2002:merge"
 
 
 def format_path(path: Iterable[Any]) -> str:
@@ -81,18 +82,25 @@ def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
         if not isinstance(node, yaml.ScalarNode) and node.tag not in _PLAIN_TAGS:
             raise ConfigError([doc.problem("yaml-syntax", path, f"tag {node.tag!r} is not allowed; configs are plain YAML")])
         if isinstance(node, yaml.MappingNode):
-            loader.flatten_mapping(node)
-            result: dict[Any, Any] = {}
+            written = {id(k) for k, _ in node.value if k.tag != _MERGE_TAG}
+            loader.flatten_mapping(node)  # `<<` merge keys: merged pairs first, the mapping's own after
+            winners: dict[str, tuple[yaml.Node, yaml.Node]] = {}
             for key_node, value_node in node.value:
                 key = scalar(key_node, path)
                 if not isinstance(key, (str, int, float, bool)) or key is None:
                     raise ConfigError([doc.problem("schema", path, f"mapping key must be a plain scalar, found {key!r}")])
                 key = str(key) if not isinstance(key, str) else key
-                child = path + (key,)
-                doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
-                if key in result:
+                earlier = winners.get(key)
+                if earlier is not None and id(earlier[0]) in written and id(key_node) in written:
+                    child = path + (key,)
+                    doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
                     raise ConfigError([doc.problem("yaml-duplicate-key", child,
                         f"key {key!r} appears twice in the same mapping; keep one")])
+                winners[key] = (key_node, value_node)  # a key written here overrides a merged one
+            result: dict[Any, Any] = {}
+            for key, (key_node, value_node) in winners.items():
+                child = path + (key,)
+                doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
                 result[key] = convert(value_node, child)
             return result
         if isinstance(node, yaml.SequenceNode):

@@ -200,3 +200,43 @@ def test_unclosed_bracket_says_where_it_opened():
     problem = only_error("format: 1\nlayers:\n  - name: [x\n")
     assert problem.rule == "yaml-syntax"
     assert "started at line 3, column 11" in problem.message
+
+
+ANCHORED = """\
+format: 1
+layers:
+  - name: flow
+    unit: learner
+    experiments:
+      - &base
+        name: alpha
+        status: running
+        buckets: ["0-999"]
+        arms: &two
+          - {name: control, weight: 50}
+          - {name: treat, weight: 50}
+      - <<: *base
+        name: beta
+        buckets: ["1000-1999"]
+      - <<: *base
+        name: gamma
+        buckets: ["1500-2999"]
+        arms: *two
+"""
+
+
+def test_merge_keys_and_anchors_follow_yaml_and_keep_the_written_lines():
+    # YAML merge keys: keys written in the mapping override merged ones (yaml.org "Merge Key
+    # Language-Independent Type"; PyYAML's safe_load, from PyPI, is the reference here).
+    import yaml
+    config, problems = parse_config(Path("c.yaml"), text=ANCHORED)
+    assert config is not None
+    reference = yaml.safe_load(ANCHORED)["layers"][0]["experiments"]
+    assert [e.model_dump(exclude_defaults=True) for e in config.layers[0].experiments] == reference
+    overlap = [p for p in problems if p.rule == "traffic-overlap"]
+    assert len(overlap) == 1 and overlap[0].line == 18
+
+
+def test_a_key_written_twice_beside_a_merge_is_still_a_duplicate():
+    problem = only_error(ANCHORED.replace("        name: beta\n", "        name: beta\n        name: delta\n"))
+    assert problem.rule == "yaml-duplicate-key" and problem.line == 15
