@@ -163,7 +163,8 @@ def _schema_problems(doc: _Document, exc: ValidationError) -> list[Problem]:
         elif "input" in error and not isinstance(error["input"], (dict, list)):
             message = f"{message}; found {error['input']!r}"
             if error["type"] in ("float_type", "int_type") and isinstance(error["input"], str):
-                message += " (write the number without quotes)"
+                percent_sign = error["input"].strip().endswith("%")
+                message += " (write the number without the % sign)" if percent_sign else " (write the number without quotes)"
         problems.append(doc.problem("schema", loc, message))
     return problems
 

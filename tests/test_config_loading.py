@@ -70,6 +70,7 @@ def test_example_configs_load(example_dir):
     (BASE.replace("        arms:", "        unit: device\n        arms:"), "unit-mismatch", 9, "unit"),
     (BASE.replace("format: 1", "format: 2"), "schema", 1, "format"),
     (BASE.replace("          - {name: treat, weight: 50}\n", "          - {name: treat, weight: fifty}\n"), "schema", 11, "weight"),
+    (BASE.replace("          - {name: treat, weight: 50}\n", "          - {name: treat, weight: 50%}\n"), "schema", 11, "weight"),
     (BASE.replace("unit: learner", "unit: learner\n    unit: device"), "yaml-duplicate-key", 5, "unit"),
 ])
 def test_each_mistake_is_reported_with_its_line(text, rule, line, path_part):
