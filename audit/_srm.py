@@ -504,9 +504,11 @@ def _diagnose(result: ExperimentResult, threshold: float) -> list[Cause]:
     """Name the likely causes, most specific first."""
     causes: list[Cause] = []
     loc = result.localisation
+    stale_in: dict[str, str] | None = None
     mismatch_segments = [s for s in result.segments if s.replay_checked and _arm_mismatch_stands_out(s, result)]
     if mismatch_segments:
         worst = max(mismatch_segments, key=lambda s: (s.replay_mismatch_share, -s.units))
+        stale_in = worst.by
         causes.append(Cause("arm_mismatch",
             f"{worst.replay_mismatched} of {worst.replay_checked} replayed units in {worst.label} "
             f"({worst.replay_mismatch_share:.1%}) were logged in an arm the config does not give them, against "
@@ -521,10 +523,15 @@ def _diagnose(result: ExperimentResult, threshold: float) -> list[Cause]:
         short_arm, gap = min(deficits, key=lambda item: item[1].excess)
         since = f" since {loc.first_srm_day.isoformat()}" if loc.first_srm_day else ""
         rest = "the rest of the experiment is balanced" if not loc.srm_rest else "the rest still shows a mismatch"
-        causes.append(Cause("dropped_exposures",
-            f"in {loc.label}, arm {result.arms[short_arm].arm!r} has {-gap.excess:,.0f} units fewer than expected "
-            f"({gap.ratio:.0%} of its expected count){since}; {rest} (p = {loc.p_rest:.2g}): "
-            f"exposures of {result.arms[short_arm].arm!r} are being lost in this segment", loc.by))
+        shortfall = (f"in {loc.label}, arm {result.arms[short_arm].arm!r} has {-gap.excess:,.0f} units fewer than "
+                     f"expected ({gap.ratio:.0%} of its expected count){since}; {rest} (p = {loc.p_rest:.2g})")
+        if stale_in is not None and stale_in.items() <= loc.by.items():
+            causes.append(Cause("arm_mismatch",
+                f"{shortfall}: its units are logged in another arm there (the stale or wrong arm above), "
+                f"not lost", loc.by))
+        else:
+            causes.append(Cause("dropped_exposures",
+                f"{shortfall}: exposures of {result.arms[short_arm].arm!r} are being lost in this segment", loc.by))
     per_unit = [a.records_per_unit for a in result.arms if a.units]
     if result.records_p_value < threshold and not result.srm and per_unit and max(per_unit) > 1.05 * min(per_unit):
         heavy = max(result.arms, key=lambda a: a.records_per_unit)

@@ -1,0 +1,62 @@
+"""Causes named by the audit on logs written through the SDK with one planted fault each (invented data)."""
+
+import json
+import random
+from datetime import date
+
+import pytest
+
+from audit._srm import audit_logs, parse_terms
+from bucketing import Assigner, MemorySink, load_config
+from tests.conftest import EXAMPLE
+
+
+@pytest.fixture(scope="module")
+def sdk_records():
+    sink = MemorySink()
+    assigner = Assigner(EXAMPLE, sink=sink)
+    rng = random.Random(3)
+    for i in range(30_000):
+        attrs = {"country": rng.choice(["NL", "DE", "BR", "US"]), "platform": rng.choice(["ios", "android", "web"]),
+                 "app_version": rng.choice(["7.2.0", "7.3.0", "7.4.0"])}
+        assigner.assign({"learner": f"c-{i}"}, attrs, day=date(2026, 11, 20)).param("lesson_minutes")
+    return sink.records
+
+
+def audit(records, tmp_path):
+    path = tmp_path / "log.jsonl"
+    path.write_text("".join(json.dumps(r) + "\n" for r in records))
+    report = audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("country,platform,app_version"),
+                        replay_units=0)
+    return next(r for r in report.results if r.experiment == "shorter-lessons")
+
+
+def test_a_stale_arm_in_one_segment_is_named_as_the_cause_not_as_lost_exposures(sdk_records, tmp_path):
+    rng = random.Random(8)
+    faulty = []
+    for record in sdk_records:
+        record = dict(record)
+        if record["experiment"] == "shorter-lessons" and record["platform"] == "web" and rng.random() < 0.5:
+            record["arm"] = "control"  # a cache on the web client serves a stale arm
+        faulty.append(record)
+    result = audit(faulty, tmp_path)
+    assert result.srm
+    kinds = [c.kind for c in result.causes]
+    assert kinds[0] == "arm_mismatch" and result.causes[0].segment == {"platform": "web"}
+    assert "dropped_exposures" not in kinds
+
+
+def test_dropped_exposures_in_one_segment_are_named_with_the_segment(sdk_records, tmp_path):
+    kept = [r for r in sdk_records
+            if not (r["experiment"] == "shorter-lessons" and r["arm"] == "short"
+                    and r["country"] == "DE" and r["platform"] == "android")]
+    result = audit(kept, tmp_path)
+    assert result.srm
+    dropped = [c for c in result.causes if c.kind == "dropped_exposures"]
+    assert dropped and dropped[0].segment.get("country") == "DE" and dropped[0].segment.get("platform") == "android"
+    assert result.replay_mismatch_share == 0
+
+
+def test_clean_sdk_logs_name_no_cause(sdk_records, tmp_path):
+    result = audit(sdk_records, tmp_path)
+    assert not result.srm and result.causes == []
