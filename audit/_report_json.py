@@ -80,7 +80,7 @@ def audit_dict(result: AuditResult) -> dict[str, Any]:
         "results": [experiment_dict(r) for r in result.results],
         "malformed": {
             "total": result.malformed.total,
-            "counts": result.malformed.counts,
+            "counts": dict(sorted(result.malformed.counts.items())),
             "examples": [{"kind": e.kind, "file": e.file, "line": e.line, "detail": e.detail, "text": e.text}
                          for e in result.malformed.examples],
         },

@@ -440,10 +440,11 @@ class _Audit:
         scan = self.scan
         attrs = scan.attributes
         cols = "".join(f", {scan.attribute_column(a)}" for a in attrs)
-        sample = f"USING SAMPLE reservoir({int(self.replay_units)} ROWS) REPEATABLE (7)" if self.replay_units else ""
+        # The sample is the units with the smallest hash of their id: the same on every run, whatever the threads.
+        sample = f"ORDER BY hash(unit), unit LIMIT {int(self.replay_units)}" if self.replay_units else ""
         rows = scan.query(f"""
             SELECT unit, arm, CAST(first_ts AS DATE), config, unit_type{cols}
-            FROM (SELECT * FROM unit_rows WHERE exp = {index} AND NOT multi AND NOT forced) {sample}""", "replaying")
+            FROM unit_rows WHERE exp = {index} AND NOT multi AND NOT forced {sample}""", "replaying")
         fallback = self.config or next(iter(self.replay_configs.values()))
         groups: dict[tuple[str, date], list[tuple]] = defaultdict(list)
         unmatched_versions = 0

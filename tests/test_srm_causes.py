@@ -60,3 +60,15 @@ def test_dropped_exposures_in_one_segment_are_named_with_the_segment(sdk_records
 def test_clean_sdk_logs_name_no_cause(sdk_records, tmp_path):
     result = audit(sdk_records, tmp_path)
     assert not result.srm and result.causes == []
+
+
+def test_the_same_logs_give_the_same_report_on_every_run(sdk_records, tmp_path):
+    # Replay samples and counts must not depend on DuckDB's thread scheduling.
+    from audit._report_json import render_json
+
+    path = tmp_path / "log.jsonl"
+    path.write_text("".join(json.dumps(r) + "\n" for r in sdk_records) + "not json\n{\"unit\": 1}\n")
+    runs = {render_json(audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("country,platform"),
+                                   replay_units=700)) for _ in range(3)}
+    assert len(runs) == 1
+    assert json.loads(runs.pop())["results"][0]["replay_checked"] == 700
