@@ -91,7 +91,8 @@ def register(app: typer.Typer) -> None:
         config_versions: Optional[Path] = typer.Option(None, "--config-versions", help="Directory of past config "
             "versions (one YAML file or subdirectory each); records are replayed under the version they name."),
         by: Optional[str] = typer.Option(None, "--by", help="Segment attributes, comma-separated; join with + to "
-                                                            "test combinations, e.g. country,platform+app_version."),
+                                                            "test combinations, e.g. country,platform+app_version; "
+                                                            "'auto' tests every other column of the logs."),
         column: list[str] = typer.Option([], "--column", help="FIELD=LOG_COLUMN when the logs use other names, "
                                                               "e.g. --column unit=user_id --column arm=variant."),
         expect: Optional[str] = typer.Option(None, "--expect", help="Expected split when there is no config "

@@ -172,6 +172,9 @@ def resolve_files(sources: Iterable[str], default_format: str | None = None) -> 
     return found
 
 
+_READER_COLUMNS = frozenset({"filename", "file_row_number"})  # added by DuckDB's readers, not by the logs
+
+
 def _sql_text(value: str) -> str:
     return "'" + value.replace("'", "''") + "'"
 
@@ -182,6 +185,13 @@ def _ident(name: str) -> str:
 
 def _file_list(files: list[LogFile]) -> str:
     return "[" + ", ".join(_sql_text(f.path) for f in files) + "]"
+
+
+def _raw_lines(group: list[LogFile], options: str = "") -> str:
+    """JSON Lines files as one text column `line`, however their lines end."""
+    # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
+    return (f"read_csv({_file_list(group)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
+            f"header=false, auto_detect=false, strict_mode=false{', ' + options if options else ''})")
 
 
 class LogScan:
@@ -218,6 +228,8 @@ class LogScan:
             self.con.execute(f"SET memory_limit = {_sql_text(memory_limit)}")
         self.con.execute(_NORMALISE)
         self.present: set[str] = set()
+        self._columns_seen: dict[str, None] = {}  # every column of the CSV and Parquet files, in order
+        self._jsonl_groups: list[list[LogFile]] = []
         self.times_as_text = False  # True when some file's ts is text or a number, so epoch times may occur
         self._csv_rejects: list[str] = []
         parts = []
@@ -235,6 +247,22 @@ class LogScan:
 
     def attribute_column(self, name: str) -> str:
         return f"a_{self.attributes.index(name)}"
+
+    def other_columns(self, sample_lines: int = 10_000) -> list[str]:
+        """Columns of the logs that are not fields of the exposure record: the candidate segments.
+
+        CSV and Parquet files say theirs in the header; JSON Lines files are
+        sampled (the keys of their first `sample_lines` records).
+        """
+        names = dict(self._columns_seen)
+        for group in self._jsonl_groups:
+            keys = self._fetch(f"""
+                SELECT DISTINCT unnest(json_keys(line)) FROM (
+                    SELECT line FROM {_raw_lines(group)}
+                    WHERE json_valid(line) AND json_type(line) = 'OBJECT' LIMIT {int(sample_lines)})""")
+            names.update(dict.fromkeys(sorted(key for (key,) in keys)))
+        taken = set(self.columns.values()) | set(RECORD_FIELDS) | _READER_COLUMNS
+        return [name for name in names if name not in taken]
 
     # -- files without records ---------------------------------------------------------------------
 
@@ -321,10 +349,9 @@ class LogScan:
         cut_short = "starts_with(ltrim(line), '{') AND NOT ends_with(rtrim(line), '}')"
         broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
                   f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
-        # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
-        source = (f"read_csv({_file_list(group)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
-                  f"header=false, auto_detect=false, strict_mode=false, filename=true, store_rejects=true, "
-                  f"rejects_table='rejects_jsonl_errors', rejects_scan='rejects_jsonl_scans')")
+        self._jsonl_groups.append(group)
+        source = _raw_lines(group, "filename=true, store_rejects=true, rejects_table='rejects_jsonl_errors', "
+                                   "rejects_scan='rejects_jsonl_scans'")
         self._csv_rejects.append("rejects_jsonl")
         parsed = f"""(
             SELECT filename, line, is_object,
@@ -352,6 +379,7 @@ class LogScan:
                 raise LogError(f"{where}: no column {self.columns[name]!r} for field {name!r} "
                                f"(columns: {', '.join(present)}){hint}")
         self.present.update(n for n in RECORD_FIELDS if self.columns[n] in present)
+        self._columns_seen.update(dict.fromkeys(present))
 
     def _typed_select(self, source: str, present: Mapping[str, str], extra: str) -> str:
         """The normalised SELECT over a typed source (CSV read as text, or Parquet)."""

@@ -31,8 +31,12 @@ EXAMPLES = 5
 ARM_MISMATCH_NOTABLE = 0.01  # replayed units whose logged arm differs from the config: above 1 % is a cause
 
 
+AUTO_TERM = ("auto",)  # `--by auto`: every column of the logs that is not a field of the record
+AUTO_MAX_VALUES = 50  # an automatic segment attribute with more values than this is left out, with a note
+
+
 def parse_terms(text: str | None) -> list[tuple[str, ...]]:
-    """'country,platform+app_version' -> [('country',), ('platform', 'app_version')]."""
+    """'country,platform+app_version' -> [('country',), ('platform', 'app_version')]; 'auto' finds them."""
     if not text:
         return []
     terms = []
@@ -124,12 +128,20 @@ def audit_logs(sources: Iterable[str], *, config: Config | None = None, expectat
     replay_configs = dict(history)
     if config is not None:
         replay_configs.setdefault(config.version, config)
+    automatic = AUTO_TERM in terms
+    terms = [term for term in terms if term != AUTO_TERM]
     attributes = [name for term in terms for name in term]
     for cfg in replay_configs.values():
         attributes += [key for layer in cfg.layers for exp in layer.experiments for key in exp.eligible]
     scan = LogScan(files, columns, attributes, progress=progress)
     try:
-        return _Audit(scan, config, expectation, terms, threshold, replay_configs, replay_units).run()
+        if automatic:
+            found = [(name,) for name in scan.other_columns() if (name,) not in terms]
+            scan.close()
+            scan = LogScan(files, columns, attributes + [name for (name,) in found], progress=progress)
+            terms += found
+        return _Audit(scan, config, expectation, terms, threshold, replay_configs, replay_units,
+                      automatic_terms=found if automatic else []).run()
     finally:
         scan.close()
 
@@ -150,8 +162,11 @@ def _load_versions(directory: str | Path) -> dict[str, Config]:
 
 
 class _Audit:
-    def __init__(self, scan: LogScan, config, expectation, terms, threshold, replay_configs, replay_units) -> None:
+    def __init__(self, scan: LogScan, config, expectation, terms, threshold, replay_configs, replay_units,
+                 automatic_terms: Sequence[tuple[str, ...]] = ()) -> None:
         self.scan = scan
+        self.automatic_terms = set(automatic_terms)
+        self.crowded_terms: set[tuple[str, ...]] = set()
         self.config = config
         self.expectation = expectation
         self.terms = list(terms)
@@ -212,8 +227,9 @@ class _Audit:
                    for index, design in enumerate(designs)]
         results = [r for r in results if r.units or r.records or r.outside_window_records]
         results.sort(key=lambda r: (not r.srm, r.p_value, r.layer, r.experiment))
+        tested = [term for term in self.terms if term not in self.crowded_terms]
         return AuditResult(self.threshold, [f.path for f in scan.files], total_records, results, malformed,
-                           unknown, self.terms, self.notes)
+                           unknown, tested, self.notes)
 
     def _read_unit_arms(self, outside: str, kept: list[str]) -> None:
         """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
@@ -362,10 +378,17 @@ class _Audit:
             cols = [scan.attribute_column(name) for name in term]
             keys = ", ".join(f"coalesce({c}, '(none)')" for c in cols)
             grouped: dict[tuple, list[int]] = {}
+            if term in self.crowded_terms:
+                continue
             for row in scan.query(f"""
                     SELECT {keys}, arm, count(*) FROM unit_rows
                     WHERE exp = {index} AND NOT multi AND NOT forced GROUP BY ALL""", "testing segments"):
                 grouped.setdefault(tuple(row[:len(cols)]), [0] * len(design.arms))[row[len(cols)]] = row[-1]
+            if term in self.automatic_terms and len(grouped) > AUTO_MAX_VALUES:
+                self.crowded_terms.add(term)
+                self.notes.append(f"--by auto: column {term[0]!r} has more than {AUTO_MAX_VALUES} values, "
+                                  f"left out of the segments (name it in --by to test it anyway)")
+                continue
             for values, arm_units in grouped.items():
                 fit = _stats.chi_square_fit(arm_units, design.shares)
                 shift = _stats.leave_out(counts, arm_units, design.shares)
@@ -398,7 +421,7 @@ class _Audit:
             return None
         chosen = dict(start.by)
         counts = start.arm_units
-        names = list(dict.fromkeys(name for term in self.terms for name in term))
+        names = list(dict.fromkeys(name for term in self.terms if term not in self.crowded_terms for name in term))
         while True:
             where = self._where(chosen)
             best = None

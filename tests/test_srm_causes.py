@@ -72,3 +72,28 @@ def test_the_same_logs_give_the_same_report_on_every_run(sdk_records, tmp_path):
                                    replay_units=700)) for _ in range(3)}
     assert len(runs) == 1
     assert json.loads(runs.pop())["results"][0]["replay_checked"] == 700
+
+
+@pytest.mark.parametrize("suffix", [".jsonl", ".csv", ".parquet"])
+def test_by_auto_tests_every_attribute_column_and_leaves_out_crowded_ones(sdk_records, tmp_path, suffix):
+    import duckdb
+
+    records = [dict(r, session=f"s-{i}") for i, r in enumerate(sdk_records)]  # one value per record
+    source = tmp_path / "log.jsonl"
+    source.write_text("".join(json.dumps(r) + "\n" for r in records))
+    path = source
+    if suffix != ".jsonl":
+        path = tmp_path / f"log{suffix}"
+        options = "(FORMAT parquet)" if suffix == ".parquet" else "(HEADER, DELIMITER ',')"
+        duckdb.connect().execute(f"COPY (SELECT * FROM read_json('{source}')) TO '{path}' {options}")
+    report = audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("auto"), replay_units=0)
+    assert sorted(report.segment_terms) == [("app_version",), ("country",), ("platform",)]
+    assert any("'session'" in note for note in report.notes)
+    lesson = next(r for r in report.results if r.experiment == "shorter-lessons")
+    # Plain-Python count of the units per country: the segments cover them all.
+    countries = {}
+    for r in sdk_records:
+        if r["experiment"] == "shorter-lessons" and not r["forced"]:
+            countries.setdefault(r["country"], set()).add(r["unit"])
+    by_country = {s.by["country"]: s.units for s in lesson.segments if list(s.by) == ["country"]}
+    assert by_country == {c: len(units) for c, units in countries.items()}
