@@ -17,7 +17,7 @@ import yaml
 from pydantic import ValidationError
 
 from ._errors import ConfigError, Problem
-from ._model import ConfigFile, Holdout, Layer
+from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile, Holdout, Layer
 
 MAX_FILE_BYTES = 5 * 1024 * 1024
 MAX_NODES = 200_000
@@ -27,6 +27,12 @@ CONFIG_SUFFIXES = (".yaml", ".yml")
 PathKey = tuple[Any, ...]
 _PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
 _MERGE_TAG = "tag:yaml.org,2002:merge"
+_PATTERN_WORDS = {
+    NAME_PATTERN: "a valid name: letters, digits, '_', '.' and '-', starting with a letter or digit "
+                  "(names become parts of default salts)",
+    SALT_PATTERN: "a valid salt: letters, digits, '_', '.' and '-' only",
+    RANGE_PATTERN: "a bucket range such as '0-1999' or a single bucket such as '42'",
+}
 
 
 def format_path(path: Iterable[Any]) -> str:
@@ -160,6 +166,9 @@ def _schema_problems(doc: _Document, exc: ValidationError) -> list[Problem]:
             message = f"unknown key {loc[-1]!r}"
         elif error["type"] == "missing":
             message = f"required key {loc[-1]!r} is missing"
+        elif error["type"] == "string_pattern_mismatch":
+            wanted = _PATTERN_WORDS.get(str(error.get("ctx", {}).get("pattern")), "a different form")
+            message = f"{error['input']!r} is not {wanted}"
         elif "input" in error and not isinstance(error["input"], (dict, list)):
             message = f"{message}; found {error['input']!r}"
             if error["type"] in ("float_type", "int_type") and isinstance(error["input"], str):

@@ -241,3 +241,11 @@ def test_merge_keys_and_anchors_follow_yaml_and_keep_the_written_lines():
 def test_a_key_written_twice_beside_a_merge_is_still_a_duplicate():
     problem = only_error(ANCHORED.replace("        name: beta\n", "        name: beta\n        name: delta\n"))
     assert problem.rule == "yaml-duplicate-key" and problem.line == 15
+
+
+def test_names_and_ranges_in_the_wrong_form_say_what_form_is_expected():
+    problem = only_error(BASE.replace("name: flow", "name: Checkout Flow"))
+    assert problem.rule == "schema" and problem.line == 3
+    assert "'Checkout Flow' is not a valid name: letters, digits" in problem.message
+    problem = only_error(BASE.replace('"0-4999"', '"0 to 4999"'))
+    assert "is not a bucket range such as '0-1999'" in problem.message
