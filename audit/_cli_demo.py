@@ -1,7 +1,7 @@
 """CLI command `demo`: writes and runs the demo scenario end to end.
 
 The demo runs the real `sortition` commands, as a user would type them, on
-the invented "Lingofox" scenario of configs_example/: assign a few learners,
+the invented language-learning scenario of configs_example/: assign a few learners,
 check the configs, catch two bad changes before they ship, show the free
 traffic, then write two weeks of exposure logs with a planted fault and let
 the audit find, localise and explain it. Every step checks its exit code; the
