@@ -20,7 +20,6 @@ from typing import Iterable, Iterator
 
 from bucketing import BUCKETS, Config, Problem, parse_config
 from bucketing._loader import format_path
-from bucketing._model import hundredths, parse_range
 from bucketing._rules import RULES as SDK_RULES
 
 LINT_RULES = {
@@ -172,8 +171,7 @@ def _window(config: Config, at: tuple, exp, today: date) -> Iterator[Problem]:
 def experiment_buckets(exp) -> int:
     """How many layer buckets an experiment holds (reversed or out-of-range ranges count nothing)."""
     total = 0
-    for text in exp.buckets:
-        low, high = parse_range(text)
+    for low, high in exp.ranges:
         if low <= high:
             total += max(0, min(high, BUCKETS - 1) - low + 1)
     return total

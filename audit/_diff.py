@@ -21,7 +21,7 @@ from typing import Iterator
 import numpy as np
 
 from bucketing import BUCKETS, Config, Problem
-from bucketing._model import Experiment, Layer, experiment_salt, hundredths, parse_range
+from bucketing._model import Experiment, Layer, experiment_salt
 
 from ._check import finding_line
 
@@ -69,11 +69,11 @@ def placement(config: Config, layer: Layer, exp: Experiment) -> Placement:
     return Placement(
         unit_type=layer.unit,
         holdout_salt=holdout.salt if holdout else None,
-        holdout_cut=(hundredths(holdout.percent) or round(holdout.percent * 100)) if holdout else 0,
+        holdout_cut=holdout.buckets if holdout else 0,
         layer_salt=layer.effective_salt,
-        ranges=tuple(parse_range(text) for text in exp.buckets),
+        ranges=exp.ranges,
         salt=experiment_salt(layer, exp),
-        arms=tuple((arm.name, hundredths(arm.weight) or round(arm.weight * 100)) for arm in exp.arms),
+        arms=tuple((arm.name, arm.buckets) for arm in exp.arms),
     )
 
 

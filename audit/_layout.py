@@ -13,7 +13,7 @@ import string
 from dataclasses import dataclass
 
 from bucketing import BUCKETS, Config
-from bucketing._model import Layer, parse_range
+from bucketing._model import Layer
 
 FREE_MARK = "."
 CLASH_MARK = "!"
@@ -52,8 +52,7 @@ def layer_layout(layer: Layer) -> LayerLayout:
     taken = [False] * BUCKETS
     for index, exp in enumerate(layer.experiments):
         ranges = []
-        for text in exp.buckets:
-            low, high = parse_range(text)
+        for low, high in exp.ranges:
             if low <= high < BUCKETS:
                 ranges.append((low, high))
                 taken[low:high + 1] = [True] * (high - low + 1)

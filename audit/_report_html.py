@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 from html import escape
 
+from ._report_text import p_text
 from ._srm_model import AuditResult, ExperimentResult
 from ._stats import share_interval
 
@@ -60,10 +61,6 @@ details { margin:6px 0; }
 summary { cursor:pointer; color:var(--muted); }
 .quiet { color:var(--muted); font-size:13px; }
 """
-
-
-def _p(value: float) -> str:
-    return f"{value:.2g}" if value >= 1e-300 else "<1e-300"
 
 
 def _share_chart(result: ExperimentResult, arm_index: int, threshold: float) -> str:
@@ -134,13 +131,13 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
     parts.append(f'<text x="{left + plot_w}" y="{y(limit) - 5:.1f}" text-anchor="end">threshold {threshold:g}</text>')
     anytime_points = " ".join(f"{x(i):.1f},{y(h):.1f}" for i, h in enumerate(anytime))
     parts.append(f'<polyline class="curve anytime" points="{anytime_points}"><title>anytime-valid p-value, '
-                 f'safe to read every day: {_p(days[-1].sequential_p)} on the last day</title></polyline>')
+                 f'safe to read every day: {p_text(days[-1].sequential_p)} on the last day</title></polyline>')
     points = " ".join(f"{x(i):.1f},{y(h):.1f}" for i, h in enumerate(heights))
     parts.append(f'<polyline class="curve" points="{points}"/>')
     for i, (day, h) in enumerate(zip(days, heights)):
         cls = "bad" if day.cumulative_p < threshold else "ok"
         parts.append(f'<circle class="{cls} day" cx="{x(i):.1f}" cy="{y(h):.1f}" r="3.5">'
-                     f'<title>{day.day.isoformat()}: cumulative p = {_p(day.cumulative_p)}, '
+                     f'<title>{day.day.isoformat()}: cumulative p = {p_text(day.cumulative_p)}, '
                      f'{sum(day.arm_units):,} new units</title></circle>')
         if i % max(1, math.ceil(len(days) / 7)) == 0:
             parts.append(f'<text x="{x(i):.1f}" y="{top + plot_h + 16}" text-anchor="middle">'
@@ -173,9 +170,9 @@ def _segments_table(result: ExperimentResult) -> str:
     for s in result.segments:
         flagged = ' class="off"' if s.srm else ""
         replay = "" if s.replay_mismatch_share is None else f"{s.replay_mismatch_share:.1%}"
-        rows.append(f"<tr><td>{escape(s.label)}</td><td>{s.units:,}</td><td>{_p(s.p_value)}</td>"
-                    f"<td{flagged}>{_p(s.p_adjusted)}</td><td>{max(s.explained, 0):.0%}</td>"
-                    f"<td>{_p(s.p_without)}</td><td>{replay}</td></tr>")
+        rows.append(f"<tr><td>{escape(s.label)}</td><td>{s.units:,}</td><td>{p_text(s.p_value)}</td>"
+                    f"<td{flagged}>{p_text(s.p_adjusted)}</td><td>{max(s.explained, 0):.0%}</td>"
+                    f"<td>{p_text(s.p_without)}</td><td>{replay}</td></tr>")
     return (f"<details><summary>all {len(result.segments)} segments tested (Holm-adjusted)</summary>"
             "<table><tr><th>segment</th><th>units</th><th>p</th><th>p adjusted</th><th>share of imbalance</th>"
             "<th>p without it</th><th>arm replay off</th></tr>" + "".join(rows) + "</table></details>")
@@ -183,7 +180,7 @@ def _segments_table(result: ExperimentResult) -> str:
 
 def _experiment(result: ExperimentResult, threshold: float) -> str:
     verdict = "MISMATCH" if result.srm else "BALANCED"
-    facts = [f"{result.units:,} units", f"χ² = {result.chi2:.1f} ({result.df} df)", f"p = {_p(result.p_value)}"]
+    facts = [f"{result.units:,} units", f"χ² = {result.chi2:.1f} ({result.df} df)", f"p = {p_text(result.p_value)}"]
     if result.replay_checked:
         facts.append(f"arm replay: {result.replay_mismatch_share:.2%} of {result.replay_checked:,} units differ")
     if result.multi_arm_units:
@@ -195,8 +192,8 @@ def _experiment(result: ExperimentResult, threshold: float) -> str:
     loc = ""
     if result.localisation is not None:
         lz = result.localisation
-        loc = (f'<p>Localised to <b>{escape(lz.label)}</b>: {lz.units:,} units, p = {_p(lz.p_value)}; '
-               f'everything else p = {_p(lz.p_rest)}.</p>')
+        loc = (f'<p>Localised to <b>{escape(lz.label)}</b>: {lz.units:,} units, p = {p_text(lz.p_value)}; '
+               f'everything else p = {p_text(lz.p_rest)}.</p>')
     charts = "".join(_share_chart(result, i, threshold) for i in range(len(result.arms) if len(result.arms) > 2 else 1))
     return (f'<section class="exp{" srm" if result.srm else ""}" id="{escape(result.experiment)}">'
             f'<h2><span class="verdict">{verdict}</span>{escape(result.experiment)} '

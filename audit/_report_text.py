@@ -7,7 +7,8 @@ from ._srm_model import AuditResult, ExperimentResult
 SEGMENT_ROWS = 8
 
 
-def _p(value: float) -> str:
+def p_text(value: float) -> str:
+    """A p-value as reports show it: two significant digits, and a floor for underflow."""
     return f"{value:.2g}" if value >= 1e-300 else "<1e-300"
 
 
@@ -21,7 +22,7 @@ def _table(header: list[str], rows: list[list[str]], indent: str = "    ") -> li
 def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     mark = "MISMATCH" if result.srm else "balanced"
     lines = [f"{mark}  {result.layer} / {result.experiment}   {result.units:,} units   "
-             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {_p(result.p_value)}"]
+             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)}"]
     if not result.srm:
         return lines + [f"    note: {c.message}" for c in result.causes]
     rows = [[a.arm, f"{a.units:,}", f"{a.observed_share:.2%}", f"{a.expected_share:.2%}",
@@ -33,11 +34,11 @@ def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     if result.days:
         since = (f", first below {threshold:g} on {result.first_sequential_srm_day.isoformat()}"
                  if result.first_sequential_srm_day else f", not below {threshold:g}")
-        lines.append(f"    anytime-valid test (safe to read daily): p = {_p(result.sequential_p_value)}{since}")
+        lines.append(f"    anytime-valid test (safe to read daily): p = {p_text(result.sequential_p_value)}{since}")
     if result.segments:
         lines.append("    segments, worst first (p adjusted by Holm over all segments tested):")
-        seg_rows = [[s.label, f"{s.units:,}", _p(s.p_value), _p(s.p_adjusted), "yes" if s.srm else "",
-                     f"{max(s.explained, 0):.0%}", _p(s.p_without),
+        seg_rows = [[s.label, f"{s.units:,}", p_text(s.p_value), p_text(s.p_adjusted), "yes" if s.srm else "",
+                     f"{max(s.explained, 0):.0%}", p_text(s.p_without),
                      "" if s.replay_mismatch_share is None else f"{s.replay_mismatch_share:.1%}"]
                     for s in result.segments[:SEGMENT_ROWS]]
         lines += _table(["segment", "units", "p", "p adj", "SRM", "explains", "p without", "arm replay off"],
@@ -47,11 +48,11 @@ def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     if result.without_worst is not None:
         w = result.without_worst
         verdict = "the mismatch remains" if w.srm else "the mismatch disappears"
-        lines.append(f"    without {w.label}: p = {_p(w.p_value)}, {verdict}")
+        lines.append(f"    without {w.label}: p = {p_text(w.p_value)}, {verdict}")
     if result.localisation is not None:
         loc = result.localisation
-        lines.append(f"    localised to {loc.label}: {loc.units:,} units, p = {_p(loc.p_value)}; "
-                     f"everything else p = {_p(loc.p_rest)}")
+        lines.append(f"    localised to {loc.label}: {loc.units:,} units, p = {p_text(loc.p_value)}; "
+                     f"everything else p = {p_text(loc.p_rest)}")
     if result.replay_checked:
         lines.append(f"    replay: {result.replay_checked:,} units recomputed from the config, "
                      f"{result.replay_mismatch_share:.2%} logged in another arm")

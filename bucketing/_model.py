@@ -54,6 +54,11 @@ class Arm(_Strict):
     weight: Number
     params: dict[str, Any] = Field(default_factory=dict)
 
+    @property
+    def buckets(self) -> int:
+        """The arm's width in the experiment's 10,000 arm buckets (weight x 100)."""
+        return round(self.weight * 100)
+
 
 class Experiment(_Strict):
     name: Name
@@ -73,6 +78,11 @@ class Experiment(_Strict):
         description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
     )
 
+    @property
+    def ranges(self) -> tuple[tuple[int, int], ...]:
+        """The bucket ranges as (low, high) pairs, in the order written; bounds are checked by `_rules`."""
+        return tuple(parse_range(text) for text in self.buckets)
+
 
 class Layer(_Strict):
     name: Name
@@ -89,6 +99,11 @@ class Holdout(_Strict):
     unit: Name
     salt: Salt
     percent: Annotated[Number, Field(gt=0, lt=100)]
+
+    @property
+    def buckets(self) -> int:
+        """Holdout buckets: units whose holdout bucket is below this are held out (percent x 100)."""
+        return round(self.percent * 100)
 
 
 class ConfigFile(_Strict):

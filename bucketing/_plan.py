@@ -15,7 +15,7 @@ from typing import Any, Callable
 
 from ._hashing import BUCKETS
 from ._loader import Config
-from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_range, parse_version
+from ._model import CONDITION_PATTERN, experiment_salt, parse_version
 
 EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
 
@@ -88,7 +88,7 @@ class ExperimentPlan:
         self.prefix = experiment_salt(layer, exp) + ":"
         edges, total = [], 0
         for arm in exp.arms:
-            total += hundredths(arm.weight) or 0  # validated: at most two decimals
+            total += arm.buckets
             edges.append(total)
         self.thresholds = tuple(edges)
         self.arms = tuple(arm.name for arm in exp.arms)
@@ -124,8 +124,7 @@ class LayerPlan:
         self.forced: dict[str, tuple[ExperimentPlan, int]] = {}
         for exp in layer.experiments:
             plan = ExperimentPlan(layer.name, layer, exp)
-            for text in exp.buckets:
-                low, high = parse_range(text)
+            for low, high in exp.ranges:
                 table[low:high + 1] = [plan] * (high - low + 1)
             if plan.running:
                 for unit, arm in exp.overrides.items():
@@ -152,7 +151,7 @@ class Plan:
         for layer in self.layers:
             by_type.setdefault(layer.unit_type, []).append(layer)
         self.layers_by_type = {t: tuple(ls) for t, ls in by_type.items()}
-        self.holdouts = {h.unit: (h.salt + ":", hundredths(h.percent)) for h in config.holdouts}
+        self.holdouts = {h.unit: (h.salt + ":", h.buckets) for h in config.holdouts}
         # What `assign` reads per unit type, as plain tuples: (holdout salt prefix or None,
         # holdout threshold, ((layer name, salt prefix, bucket -> running experiment, forced units), ...)).
         self.hot = {

@@ -14,7 +14,7 @@ from typing import Iterator
 from ._errors import Problem
 from ._hashing import BUCKETS
 from ._loader import Config
-from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_range, parse_version
+from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_version
 
 # Rule ids. Shared with `sortition check`, which documents each one.
 RULES = {
@@ -154,8 +154,7 @@ def _holdouts(config: Config) -> Iterator[tuple[str, tuple, str]]:
 
 def _ranges(exp, at: tuple, owners: list, ei: int) -> Iterator[tuple[str, tuple, str]]:
     mine: list[tuple[int, int, int]] = []
-    for ri, text in enumerate(exp.buckets):
-        low, high = parse_range(text)
+    for ri, (text, (low, high)) in enumerate(zip(exp.buckets, exp.ranges)):
         path = at + ("buckets", ri)
         if low > high:
             yield ("range-bounds", path, f"range {text!r} is reversed; write {high}-{low}")
