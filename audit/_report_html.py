@@ -145,7 +145,7 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
     parts.append("</svg>")
     first = (f"; first below the threshold on <b>{result.first_srm_day.isoformat()}</b>"
              if result.first_srm_day else "")
-    first += (f"; dotted: the anytime-valid test, safe to read daily"
+    first += ("; dotted: the anytime-valid test, safe to read daily"
               + (f", below the threshold on <b>{result.first_sequential_srm_day.isoformat()}</b>"
                  if result.first_sequential_srm_day else ""))
     return f'<figure><figcaption>cumulative p-value by day (log scale){first}</figcaption>{"".join(parts)}</figure>'

@@ -1,6 +1,5 @@
 """The assignment order of the contract, rule by rule, on invented configs."""
 
-import logging
 from datetime import date
 from pathlib import Path
 
@@ -45,12 +44,14 @@ def find_unit(predicate, prefix="u"):
 
 
 def test_forced_wins_over_holdout_eligibility_and_dates():
-    assigner = assigner_from_yaml(TWO_TYPES)
-    assert bucket_of("h-salt", "qa-1") < 5000 or True  # qa-1 may or may not be held out; check both paths below
-    for attrs, day in [({}, date(2025, 1, 1)), ({"country": "US"}, IN_WINDOW)]:
-        got = assigner.assign({"learner": "qa-1"}, attrs, day=day)
-        assert got.layers["flow"].experiment == "alpha"
-        assert got.layers["flow"].arm == "big" and got.layers["flow"].forced
+    held = find_unit(lambda u: bucket_of("h-salt", u) < 5000, prefix="qa")
+    assigner = assigner_from_yaml(TWO_TYPES.replace("overrides: {qa-1: big}", f"overrides: {{qa-1: big, {held}: big}}"))
+    for unit in ("qa-1", held):
+        for attrs, day in [({}, date(2025, 1, 1)), ({"country": "US"}, IN_WINDOW)]:
+            got = assigner.assign({"learner": unit}, attrs, day=day)
+            assert got.layers["flow"].experiment == "alpha"
+            assert got.layers["flow"].arm == "big" and got.layers["flow"].forced
+    assert assigner.assign({"learner": held}).holdout, "the held-out QA unit is forced all the same"
 
 
 def test_held_out_units_get_no_experiment_in_any_layer_of_that_type():

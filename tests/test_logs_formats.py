@@ -11,7 +11,7 @@ import gzip
 import io
 import json
 from collections import Counter
-from datetime import date, datetime, timedelta, timezone
+from datetime import date, datetime, timedelta
 from pathlib import Path
 
 import mmh3

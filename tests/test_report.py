@@ -4,8 +4,6 @@ import re
 import shutil
 import subprocess
 
-import pytest
-
 from audit._report_html import render_html
 from audit._report_json import audit_dict
 from audit._report_text import render_text
