@@ -37,13 +37,19 @@ def bench_config_yaml(layers: int = 5, experiments_per_layer: int = 4) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _best_of(repeats: int, fn) -> float:
-    best = float("inf")
-    for _ in range(repeats):
-        gc.collect()
-        started = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - started)
+def _best_interleaved(rounds: int, *fns) -> list[float]:
+    """Best time of each function over `rounds`, the functions taking turns within each round.
+
+    Taking turns means a burst of load from another process on this shared
+    machine slows every contender in that round, not just one of them.
+    """
+    best = [float("inf")] * len(fns)
+    for _ in range(rounds):
+        for index, fn in enumerate(fns):
+            gc.collect()
+            started = time.perf_counter()
+            fn()
+            best[index] = min(best[index], time.perf_counter() - started)
     return best
 
 
@@ -88,9 +94,7 @@ def run() -> str:
         for unit in UNITS:
             assigner.assign({"learner": unit})
 
-    bare_s = _best_of(5, bare)
-    concat_s = _best_of(5, bare_with_concat)
-    assign_s = _best_of(5, assign)
+    bare_s, concat_s, assign_s = _best_interleaved(9, bare, bare_with_concat, assign)
     n = len(UNITS)
 
     batch_ids = [f"u{i}" for i in range(BATCH_UNITS)]
