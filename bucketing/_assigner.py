@@ -223,7 +223,41 @@ class Assigner:
         """Assign a unit: `units` maps unit type to id, e.g. {"learner": "L-1", "device": "D-9"}."""
         plan = self._plan
         try:
-            return self._assign(plan, units, attrs, None if day is None else day.toordinal() - EPOCH_ORDINAL)
+            today = None if day is None else day.toordinal() - EPOCH_ORDINAL
+            attrs = attrs if attrs is not None else _NO_ATTRS
+            ids: dict[str, str] = {}
+            slots: dict[str, tuple] = {}
+            held = _NOBODY
+            for unit_type, uid in units.items():
+                if type(uid) is not str or not uid.isascii():
+                    try:
+                        uid = unit_key(uid)
+                    except (TypeError, ValueError):
+                        self.errors["unit_id"] += 1
+                        continue
+                ids[unit_type] = uid
+                hot = plan.hot.get(unit_type)
+                if hot is None:
+                    continue
+                holdout_prefix, holdout_below, type_layers = hot
+                out = holdout_prefix is not None and _hash(holdout_prefix + uid, 0, False) % BUCKETS < holdout_below
+                if out:
+                    held = held | {unit_type}
+                for name, prefix, live, forced_units in type_layers:
+                    bucket = _hash(prefix + uid, 0, False) % BUCKETS
+                    if forced_units:
+                        forced = forced_units.get(uid)
+                        if forced is not None:
+                            exp, index = forced
+                            slots[name] = (unit_type, uid, exp, index, bucket, True)
+                            continue
+                    exp = None if out else live[bucket]
+                    if exp is not None and (not exp.gated or exp.admits(attrs, today, self.errors)):
+                        index = bisect_right(exp.thresholds, _hash(exp.prefix + uid, 0, False) % BUCKETS)
+                        slots[name] = (unit_type, uid, exp, index, bucket, False)
+                    else:
+                        slots[name] = (unit_type, uid, None, 0, bucket, False)
+            return Assignment(ids, attrs, held, plan, slots, self._exposer)
         except Exception:
             self.errors["unit"] += 1
             return Assignment({}, _NO_ATTRS, _NOBODY, plan, {}, None)
@@ -231,55 +265,15 @@ class Assigner:
     def assign_many(self, unit_type: str, ids: Iterable[str | int],
                     attrs: Iterable[Mapping[str, Any] | None] | None = None, *,
                     day: date | None = None) -> Iterator[Assignment]:
-        """Assign many units of one type under one config version (offline backfills).
+        """Assign many units of one type (offline backfills): exactly what `assign` gives one by one.
 
-        Gives exactly what `assign` gives one by one; the plan and the day are
-        read once for the whole batch, and no exposures are recorded.
+        The day is read once for the whole batch (today, UTC, unless given);
+        each unit gets the config serving when it is assigned, as with
+        `assign`; reading a parameter of these results records no exposure.
         """
-        plan = self._plan
-        today = (day.toordinal() - EPOCH_ORDINAL) if day is not None else int(time() // 86400)
+        when = day if day is not None else date.fromordinal(int(time() // 86400) + EPOCH_ORDINAL)
         attr_iter = iter(attrs) if attrs is not None else None
         for unit in ids:
-            unit_attrs = next(attr_iter) if attr_iter is not None else None
-            try:
-                yield self._assign(plan, {unit_type: unit}, unit_attrs, today, expose=False)
-            except Exception:
-                self.errors["unit"] += 1
-                yield Assignment({}, _NO_ATTRS, _NOBODY, plan, {}, None)
-
-    def _assign(self, plan: Plan, units: Mapping[str, str | int], attrs: Mapping[str, Any] | None,
-                today: int | None, expose: bool = True) -> Assignment:
-        attrs = attrs if attrs is not None else _NO_ATTRS
-        ids: dict[str, str] = {}
-        slots: dict[str, tuple] = {}
-        held = _NOBODY
-        for unit_type, uid in units.items():
-            if type(uid) is not str or not uid.isascii():
-                try:
-                    uid = unit_key(uid)
-                except (TypeError, ValueError):
-                    self.errors["unit_id"] += 1
-                    continue
-            ids[unit_type] = uid
-            hot = plan.hot.get(unit_type)
-            if hot is None:
-                continue
-            holdout_prefix, holdout_below, type_layers = hot
-            out = holdout_prefix is not None and _hash(holdout_prefix + uid, 0, False) % BUCKETS < holdout_below
-            if out:
-                held = held | {unit_type}
-            for name, prefix, live, forced_units in type_layers:
-                bucket = _hash(prefix + uid, 0, False) % BUCKETS
-                if forced_units:
-                    forced = forced_units.get(uid)
-                    if forced is not None:
-                        exp, index = forced
-                        slots[name] = (unit_type, uid, exp, index, bucket, True)
-                        continue
-                exp = None if out else live[bucket]
-                if exp is not None and (not exp.gated or exp.admits(attrs, today, self.errors)):
-                    index = bisect_right(exp.thresholds, _hash(exp.prefix + uid, 0, False) % BUCKETS)
-                    slots[name] = (unit_type, uid, exp, index, bucket, False)
-                else:
-                    slots[name] = (unit_type, uid, None, 0, bucket, False)
-        return Assignment(ids, attrs, held, plan, slots, self._exposer if expose else None)
+            got = self.assign({unit_type: unit}, next(attr_iter) if attr_iter is not None else None, day=when)
+            got._exposer = None
+            yield got
