@@ -15,7 +15,10 @@ $(STAMP): pyproject.toml
 demo: $(STAMP)
 	$(BIN)/sortition demo --out demo-output
 
+# The tests drive a real headless browser; scripts/system-tools.sh installs
+# Debian's chromium when it is missing (as root), or says what to install.
 test: $(STAMP)
+	bash scripts/system-tools.sh chromium
 	$(BIN)/python -m pytest
 
 bench: $(STAMP)

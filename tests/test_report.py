@@ -38,7 +38,7 @@ def test_html_is_self_contained(demo):  # noqa: F811
 
 
 def test_html_renders_in_headless_chromium(demo, tmp_path):  # noqa: F811
-    assert CHROMIUM, "chromium is needed for this test (CI installs it)"
+    assert CHROMIUM, "chromium is needed for this test (make test installs it: scripts/system-tools.sh)"
     _, result = demo
     page = tmp_path / "srm.html"
     page.write_text(render_html(result), encoding="utf-8")
