@@ -8,6 +8,8 @@
 """
 
 from ._assigner import Assigner, Assignment, LayerAssignment
+from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, HeldOut, HoldoutCheck, NoExperiment,
+                       NotEligible, NotRunning, Step)
 from ._errors import ConfigError, Problem, SortitionError
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
@@ -28,6 +30,17 @@ __all__ = [
     "LoggingSink",
     "CallbackSink",
     "RECORD_FIELDS",
+    "Explanation",
+    "HoldoutCheck",
+    "Step",
+    "Forced",
+    "HeldOut",
+    "NoExperiment",
+    "NotRunning",
+    "BeforeStart",
+    "AfterEnd",
+    "NotEligible",
+    "Assigned",
     "ConfigError",
     "Problem",
     "SortitionError",
