@@ -20,6 +20,7 @@ from ._hashing import BUCKETS, bucket_of
 from ._loader import CONFIG_SUFFIXES, load_config, parse_config
 from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
 from ._rules import RULES
+from ._watch import ConfigWatcher, ReloadAttempt
 
 __all__ = [
     "Assigner",
@@ -48,6 +49,8 @@ __all__ = [
     "LoggingSink",
     "CallbackSink",
     "RECORD_FIELDS",
+    "ConfigWatcher",
+    "ReloadAttempt",
     "Explanation",
     "HoldoutCheck",
     "Step",
