@@ -16,30 +16,14 @@ from bucketing import (AfterEnd, Assigned, Assigner, BeforeStart, Forced, HeldOu
                        NotRunning, Step, bucket_of, load_config)
 from bucketing._explain import REASONS
 from bucketing.testing import assigner_from_yaml, pinned
-from tests.conftest import EXAMPLE
+from tests.conftest import EXAMPLE, SMALL
 from tests.test_vectors import _condition_holds, _lines, _raw_example, contract_bucket
 
-EVERY_REASON = """\
-format: 1
-holdout:
-  - {unit: learner, salt: why-holdout, percent: 10}
-layers:
-  - name: flow
-    unit: learner
-    experiments:
-      - name: alpha
-        status: running
-        buckets: ["0-1999"]
-        eligible: {country: [NL, BE], app_version: ">=7.2"}
-        overrides: {qa-1: big}
-        arms:
-          - {name: control, weight: 50, params: {size: 1}}
-          - {name: big, weight: 50, params: {size: 2}}
-      - name: beta
-        status: paused
-        buckets: ["2000-3999"]
-        arms:
-          - {name: control, weight: 100}
+# The shared small config (tests/conftest.py: a 10 % holdout, `alpha` forcing qa-1, `beta` paused), narrowed
+# so that one layer shows every reason: alpha 0-1999 targeted, beta 2000-3999, gamma 4000-5999 dated, the rest free.
+EVERY_REASON = SMALL.replace(
+    'buckets: ["0-4999"]', 'buckets: ["0-1999"]\n        eligible: {country: [NL, BE], app_version: ">=7.2"}'
+).replace('buckets: ["5000-9999"]', 'buckets: ["2000-3999"]') + """\
       - name: gamma
         status: running
         buckets: ["4000-5999"]
@@ -57,7 +41,7 @@ def unit_where(predicate) -> str:
 
 
 def not_held(unit: str) -> bool:
-    return bucket_of("why-holdout", unit) >= 1000
+    return bucket_of("small-holdout", unit) >= 1000
 
 
 @pytest.fixture
@@ -80,9 +64,9 @@ def test_forced_override_names_experiment_and_arm(assigner):
 
 
 def test_held_out_gives_the_holdout_bucket_and_the_cut(assigner):
-    unit = unit_where(lambda u: bucket_of("why-holdout", u) < 1000 and bucket_of("flow", u) < 2000)
+    unit = unit_where(lambda u: bucket_of("small-holdout", u) < 1000 and bucket_of("flow", u) < 2000)
     step = explain_flow(assigner, unit)
-    assert step == HeldOut("flow", "learner", unit, bucket_of("flow", unit), bucket_of("why-holdout", unit), 1000)
+    assert step == HeldOut("flow", "learner", unit, bucket_of("flow", unit), bucket_of("small-holdout", unit), 1000)
     check = assigner.explain({"learner": unit}, OK, day=DAY).holdouts["learner"]
     assert check.held_out and check.bucket < check.cut == 1000
 

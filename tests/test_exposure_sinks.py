@@ -12,6 +12,7 @@ from bucketing import (RECORD_FIELDS, Assigner, CallbackSink, JsonLinesSink, Log
                        SortitionError)
 from bucketing._exposure import pseudonym
 from bucketing.testing import assigner_from_yaml
+from tests.conftest import SMALL
 
 
 def test_json_lines_file_from_many_threads_has_every_record_whole(example_dir, tmp_path):
@@ -81,21 +82,8 @@ def test_failing_callback_is_counted_not_raised(example_dir):
     assert {r["layer"] for r in seen} == {"lesson-flow", "audio-engine"}
 
 
-TARGETS_COUNTRY = """\
-format: 1
-layers:
-  - name: flow
-    unit: learner
-    experiments:
-      - name: alpha
-        status: running
-        buckets: ["0-9999"]
-        eligible: {country: [NL, BE]}
-        overrides: {qa-1: big}
-        arms:
-          - {name: control, weight: 50, params: {size: 1}}
-          - {name: big, weight: 50, params: {size: 2}}
-"""
+# The shared small config (tests/conftest.py), its experiment targeting country.
+TARGETS_COUNTRY = SMALL.replace("overrides: {qa-1: big}", "eligible: {country: [NL, BE]}\n        overrides: {qa-1: big}")
 
 
 def strict_json(line: str) -> dict:

@@ -4,21 +4,10 @@ import logging
 
 from bucketing import bucket_of
 from bucketing.testing import assigner_from_yaml
+from tests.conftest import SMALL
 
-RIDER = """\
-format: 1
-holdout:
-  - {unit: learner, salt: only-held, percent: 50}
-layers:
-  - name: pricing
-    unit: rider
-    experiments:
-      - name: surge-copy
-        status: running
-        buckets: ["0-9999"]
-        arms:
-          - {name: control, weight: 100}
-"""
+# The shared small config (tests/conftest.py) with its layer moved to riders; the holdout stays on learners.
+RIDER = SMALL.replace("unit: learner\n    experiments:", "unit: rider\n    experiments:")
 
 
 def test_unused_unit_type_is_counted_every_time_and_logged_once(caplog):
@@ -31,12 +20,12 @@ def test_unused_unit_type_is_counted_every_time_and_logged_once(caplog):
     assert assigner.errors["unknown_unit_type"] == 6
     messages = [r.getMessage() for r in caplog.records]
     assert len(messages) == 2
-    assert "'user'" in messages[0] and "rider" in messages[0] and "'passenger'" in messages[1]
+    assert "'user'" in messages[0] and "rider" in messages[0] and "learner" in messages[0] and "'passenger'" in messages[1]
 
 
 def test_a_unit_type_with_only_a_holdout_is_known_and_held_out():
     assigner = assigner_from_yaml(RIDER)
-    held = next(f"L-{i}" for i in range(1000) if bucket_of("only-held", f"L-{i}") < 5000)
+    held = next(f"L-{i}" for i in range(1000) if bucket_of("small-holdout", f"L-{i}") < 1000)
     got = assigner.assign({"learner": held})
     assert got.holdout and got.held_out == {"learner"}
     assert assigner.errors["unknown_unit_type"] == 0

@@ -6,20 +6,10 @@ import time
 from pathlib import Path
 
 from bucketing import Assigner, ConfigWatcher, load_config
+from tests.conftest import SMALL
 
-CONFIG = """\
-format: 1
-layers:
-  - name: flow
-    unit: learner
-    experiments:
-      - name: alpha
-        status: running
-        buckets: ["0-9999"]
-        salt: {salt}
-        arms:
-          - {{name: control, weight: 100, params: {{size: 1}}}}
-"""
+# The shared small config (tests/conftest.py) with its holdout salt to fill in: each salt is another version.
+CONFIG = SMALL.replace("{", "{{").replace("}", "}}").replace("salt: small-holdout", "salt: {salt}")
 
 
 def version_of(text: str) -> str:
@@ -95,7 +85,7 @@ def test_a_folder_is_watched_file_by_file(tmp_path):
     assigner = Assigner(folder)
     watcher = ConfigWatcher(assigner, folder, settle=0)
     watcher.poll()
-    write(folder / "b.yaml", CONFIG.format(salt="two").replace("flow", "other").replace("size", "length"))
+    write(folder / "b.yaml", "format: 1\nlayers:\n  - {name: other, unit: device}\n")
     assert watcher.poll().ok and {layer.name for layer in assigner.config.layers} == {"flow", "other"}
     (folder / "b.yaml").unlink()
     assert watcher.poll().ok and [layer.name for layer in assigner.config.layers] == ["flow"]
@@ -152,9 +142,10 @@ def test_thread_polls_until_stopped(tmp_path):
 def test_rewrite_in_place_race_never_loads_a_torn_file(tmp_path):
     """A writer rewrites the file in place, slowly, chunk by chunk; the watcher polls all the while.
 
-    Each version ends in a long salt, so most cuts of a half-written file are
-    valid configs with a different salt: a watcher that loads one would
-    reshuffle every unit. Every version loaded must be a complete one.
+    Each version starts with a long holdout salt, and many cuts of a
+    half-written file are valid configs (a salt cut short, a holdout and no
+    layers, a percent of 1 for 10): a watcher that loads one would reshuffle
+    units. Every version loaded must be a complete one.
     """
     path = tmp_path / "config.yaml"
     texts = [CONFIG.format(salt=f"v{n}-" + "s" * 150) for n in range(6)]
