@@ -227,3 +227,19 @@ def test_srm_fields_are_specified(exposure_log):
         assert lessons[part], f"the planted faults no longer fill in {part!r}; the test would not see its fields"
     assert report["malformed"]["examples"] and report["unknown"]
     assert_described("srm", [report])
+
+
+def test_the_repository_points_at_its_own_specification():
+    """A clone holds everything it refers to: nothing points at the design file outside the repository."""
+    pointers = ("../" "shared", "DESIGN" ".md")  # written in two pieces so that this file does not match itself
+    skipped_dirs = {"demo-output", "node_modules"}
+    offenders = []
+    for path in ROOT.rglob("*"):
+        parts = path.relative_to(ROOT).parts
+        if any(p.startswith(".") or p in skipped_dirs or p.endswith(".egg-info") for p in parts[:-1]):
+            continue
+        if path.is_file() and (path.suffix in (".md", ".py", ".yaml", ".yml", ".toml", ".sh") or path.name == "Makefile"):
+            text = path.read_text(encoding="utf-8", errors="replace")
+            if any(pointer in text for pointer in pointers):
+                offenders.append(str(path.relative_to(ROOT)))
+    assert not offenders, f"these files point outside the repository; point at docs/SPEC.md instead: {offenders}"
