@@ -8,6 +8,7 @@ review tools can show what a rule is for.
 
 from __future__ import annotations
 
+import json
 from importlib import metadata
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Protocol
@@ -77,3 +78,8 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
         "version": SARIF_VERSION,
         "runs": [{"tool": {"driver": driver}, "columnKind": "unicodeCodePoints", "results": results}],
     }
+
+
+def sarif_json(findings: Iterable[LocatedFinding], rules: Mapping[str, str]) -> str:
+    """The SARIF log as indented JSON, for stdout."""
+    return json.dumps(sarif_log(findings, rules), indent=2, ensure_ascii=False)

@@ -1,4 +1,4 @@
-"""`sortition schema`: the JSON Schema of the config format, made from the SDK's pydantic models.
+"""`config_schema`: the JSON Schema of the config format, made from the SDK's pydantic models.
 
 Editors that understand JSON Schema validate config YAML as people type; the
 schema is the models' own, so it never drifts from what the SDK accepts
@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from bucketing._model import ConfigFile
+from .._sdk import ConfigFile
 
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 SCHEMA_ID = "urn:sortition:config-format:1"
