@@ -40,7 +40,12 @@ if TYPE_CHECKING:  # the same names, for type checkers
         UnknownRecords, audit_logs,
     )
 
-__all__ = ["__version__", "SortitionError", "AuditError", "LogError", "MissingFieldError", *_LAZY]
+__all__ = [
+    "__version__", "SortitionError", "AuditError", "LogError", "MissingFieldError",
+    "audit_logs", "AuditResult", "ExperimentResult", "ArmResult", "SegmentResult", "DayResult", "Localisation", "Cause",
+    "Malformed", "UnknownRecords",
+    "check_config", "CheckResult", "diff_configs", "ConfigDiff", "ExperimentChange", "layout_of", "Layout", "LayerLayout",
+]
 
 
 def __getattr__(name: str) -> object:

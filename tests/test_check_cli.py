@@ -104,8 +104,8 @@ def test_text_lines_name_file_line_column_and_rule(check):
 def test_rules_lists_every_rule_and_whether_it_can_be_off(check):
     got = check("--rules")
     assert got.exit_code == 0
-    assert any(l.split()[:2] == ["traffic-overlap", "no"] for l in got.stdout.splitlines())
-    assert any(l.split()[:2] == ["window-ended", "yes"] for l in got.stdout.splitlines())
+    assert any(line.split()[:2] == ["traffic-overlap", "no"] for line in got.stdout.splitlines())
+    assert any(line.split()[:2] == ["window-ended", "yes"] for line in got.stdout.splitlines())
 
 
 def test_no_path_is_a_one_line_error(check):
@@ -129,4 +129,7 @@ def test_pre_commit_hooks_file_names_the_check_command():
     # pre-commit's manifest format (pre-commit.com, "Creating new hooks"): id, name, entry, language required.
     for hook in hooks:
         assert {"id", "name", "entry", "language"} <= set(hook)
+        # pre-commit installs the hook's repository with `pip install .` plus these, from the clone (from memory):
+        # the command line needs the audit extra.
+        assert hook["additional_dependencies"] == [".[audit]"]
     assert by_id["sortition-check"]["entry"].split()[:2] == ["sortition", "check"]

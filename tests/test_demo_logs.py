@@ -1,9 +1,7 @@
 """The demo's invented logs: written through the SDK, the planted fault found, localised and explained."""
 
 import json
-from pathlib import Path
 
-import pytest
 
 from audit import audit_logs
 from audit.demo import FAULT_ARM, FAULT_EXPERIMENT, FAULT_SEGMENT, write_demo_logs

@@ -149,7 +149,7 @@ def test_blocked_change_names_file_and_line_in_text(sortition, configs):
     _edit(configs[1] / "lessons.yaml", "salt: shorter-lessons-1", "salt: shorter-lessons-9")
     got = sortition("diff", str(configs[0]), str(configs[1]))
     assert got.exit_code == 1
-    line = next(l for l in got.stdout.splitlines() if "reassign-running" in l)
+    line = next(line for line in got.stdout.splitlines() if "reassign-running" in line)
     lines = (configs[1] / "lessons.yaml").read_text().splitlines()
     reported = int(line.split(":")[1])
     assert lines[reported - 1].strip() == "- name: shorter-lessons"

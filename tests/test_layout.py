@@ -2,7 +2,6 @@
 
 import json
 import shutil
-from pathlib import Path
 
 import pytest
 
@@ -29,7 +28,7 @@ def test_owned_and_free_ranges_of_the_examples(sortition):
 
 def test_bar_marks_owners_and_free_cells(sortition):
     got = sortition("layout", str(EXAMPLE), "--layer", "lesson-flow", "--width", "10")
-    bar = next(l for l in got.stdout.splitlines() if l.strip().startswith("0 |"))
+    bar = next(line for line in got.stdout.splitlines() if line.strip().startswith("0 |"))
     # 10 cells of 1,000 buckets: 4 of shorter-lessons (A), 2 of review-first (B), 4 free.
     assert bar.strip() == "0 |AAAABB....| 9999"
 

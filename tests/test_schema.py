@@ -2,7 +2,6 @@
 
 import json
 from datetime import date
-from pathlib import Path
 
 import jsonschema
 import pytest

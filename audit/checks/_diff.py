@@ -13,10 +13,9 @@ cannot be counted from buckets; a change there is named with an unknown share.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from fractions import Fraction
-from os import PathLike
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -303,7 +302,7 @@ def _moved_layers(old_index: dict, new_index: dict) -> dict[tuple[str, str], tup
             if len(new_keys) == 1 and len(old_by_name.get(name, [])) == 1}
 
 
-def diff_configs(old: Config | str | PathLike | None, new: Config | str | PathLike) -> ConfigDiff:
+def diff_configs(old: Config | str | Path | None, new: Config | str | Path) -> ConfigDiff:
     """What changing config `old` (None: no config yet) into `new` does to every experiment of either.
 
     Each may be a loaded `Config` or the path of a config file or directory.
@@ -322,6 +321,7 @@ def diff_configs(old: Config | str | PathLike | None, new: Config | str | PathLi
         if old_key is None:
             changes.append(_added(new, li, ei))
         else:
+            assert old is not None  # an experiment with an old key exists in the old config
             changes.append(_compared(old, old_index[old_key], new, (li, ei)))
     matched_old = set(moved.values())
     for key, (li, ei) in old_index.items():
@@ -363,6 +363,7 @@ def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[i
     new_exp = new_layer.experiments[new_at[1]]
     before, after = placement(old, old_layer, old_exp), placement(new, new_layer, new_exp)
     found, unknown = causes(old_layer, old_exp, before, new_layer, new_exp, after)
+    moves: tuple[tuple[str, str, Fraction], ...]
     if before.unit_type != after.unit_type:
         found.insert(0, f"unit type change ({before.unit_type} → {after.unit_type})")
         old_traffic, new_traffic = traffic(before), traffic(after)

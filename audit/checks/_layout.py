@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import string
 from dataclasses import dataclass, field
-from os import PathLike
+from pathlib import Path
 from typing import Any, Mapping
 
 from bucketing import BUCKETS, Config, load_config
@@ -131,7 +131,7 @@ class Layout:
         } for layer in self.layers]}
 
 
-def layout_of(config: Config | str | PathLike, layer: str | None = None, want: float | None = None) -> Layout:
+def layout_of(config: Config | str | Path, layer: str | None = None, want: float | None = None) -> Layout:
     """Each layer's buckets (or only `layer`'s); with `want` (a percent of the layer), buckets for a new experiment."""
     loaded = config if isinstance(config, Config) else load_config(config)
     chosen = [item for item in loaded.layers if layer is None or item.name == layer]

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import date
-from os import PathLike
+from pathlib import Path
 from typing import Any, Iterable, Iterator, Mapping, Union
 
 from bucketing import BUCKETS, Config, Problem, parse_config
@@ -26,7 +26,7 @@ from ._waivers import Waived, apply_waivers
 LIVE_STATUSES = ("draft", "running")
 DEFAULT_MIN_ARM_UNITS = 1000
 
-Sources = Union[str, PathLike, Iterable[Union[str, PathLike]]]
+Sources = Union[str, Path, Iterable[Union[str, Path]]]
 
 
 @dataclass(frozen=True)
@@ -92,7 +92,7 @@ def check_config(sources: Sources, *, day: date | None = None, weekly_units: Map
         if reason:
             raise AuditError(f"cannot turn off {rule!r}: {reason}")
     options = CheckOptions(day or date.today(), dict(weekly_units or {}), min_arm_units, frozenset(ignore))
-    paths = [sources] if isinstance(sources, (str, PathLike)) else list(sources)
+    paths = [sources] if isinstance(sources, (str, Path)) else list(sources)
     config, problems = parse_config(paths, text=text)
     if config is None:
         files = tuple(sorted({p.file for p in problems}))

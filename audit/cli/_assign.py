@@ -79,7 +79,8 @@ def register(app: typer.Typer) -> None:
     def assign(
         config: Path = typer.Argument(..., help="Config file or directory."),
         unit: Optional[str] = typer.Option(None, "--unit", help="The unit id to assign."),
-        units: Optional[str] = typer.Option(None, "--units", help="File of unit ids (one per line), or CSV with a 'unit' column and attribute columns; '-' for stdin."),
+        units: Optional[str] = typer.Option(None, "--units", help="File of unit ids (one per line), or CSV with a 'unit' "
+                                            "column and attribute columns; '-' for stdin."),
         unit_type: Optional[str] = typer.Option(None, "--unit-type", help="Unit type of the id; needed when the config has several."),
         attr: list[str] = typer.Option([], "--attr", help="Unit attribute KEY=VALUE, repeatable."),
         day: Optional[str] = typer.Option(None, "--day", help="Assign as of this ISO date (default: today, UTC)."),
@@ -112,6 +113,7 @@ def register(app: typer.Typer) -> None:
                 else:
                     typer.echo(_text(got, chosen))
                 return 0
+            assert units is not None  # exactly one of --unit and --units
             results = (assigner.assign({chosen: uid}, {**extra, **a}, day=when) for uid, a in _read_units(units))
             layer_names = [layer.name for layer in loaded.layers if layer.unit == chosen]
             if fmt is AssignFormat.csv:

@@ -41,8 +41,10 @@ def register(app: typer.Typer) -> None:
         ignore: list[str] = typer.Option([], "--ignore", help="Turn a warning rule off for this run, repeatable."),
         day: Optional[str] = typer.Option(None, "--day", help="Judge dates as of this ISO date (default: today)."),
         today: Optional[str] = typer.Option(None, "--today", hidden=True, help="Old name of --day."),
-        weekly: list[str] = typer.Option([], "--weekly-units", help="Expected units a week, UNIT_TYPE=COUNT, repeatable; overrides the config's weekly_units."),
-        min_arm_units: int = typer.Option(DEFAULT_MIN_ARM_UNITS, "--min-arm-units", min=0, help="Warn when an arm expects fewer units a week."),
+        weekly: list[str] = typer.Option([], "--weekly-units", help="Expected units a week, UNIT_TYPE=COUNT, "
+                                         "repeatable; overrides the config's weekly_units."),
+        min_arm_units: int = typer.Option(DEFAULT_MIN_ARM_UNITS, "--min-arm-units", min=0,
+                                          help="Warn when an arm expects fewer units a week."),
         strict: bool = typer.Option(False, "--strict", help="Count warnings as findings: exit 1 on warnings too."),
         separate: bool = typer.Option(False, "--separate", help="Check each PATH as a config of its own instead of merging them."),
         rules: bool = typer.Option(False, "--rules", help="List the rule ids and exit."),

@@ -14,4 +14,8 @@ def register(app: typer.Typer) -> None:
     @app.command("schema", epilog="Example: sortition schema > sortition.schema.json")
     def schema() -> None:
         """Print the JSON Schema of the config format, for editors that validate YAML as you type."""
-        guarded(lambda: typer.echo(json.dumps(config_schema(), indent=2)) or 0)
+        def run() -> int:
+            typer.echo(json.dumps(config_schema(), indent=2))
+            return 0
+
+        guarded(run)

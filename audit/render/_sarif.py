@@ -20,12 +20,18 @@ LEVELS = {"error": "error", "warning": "warning", "note": "note"}
 
 
 class LocatedFinding(Protocol):
-    rule: str
-    severity: str
-    file: str
-    line: int
-    column: int
-    message: str
+    @property
+    def rule(self) -> str: ...
+    @property
+    def severity(self) -> str: ...
+    @property
+    def file(self) -> str: ...
+    @property
+    def line(self) -> int: ...
+    @property
+    def column(self) -> int: ...
+    @property
+    def message(self) -> str: ...
 
 
 def tool_version() -> str:

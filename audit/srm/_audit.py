@@ -13,7 +13,6 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field, replace
-from os import PathLike
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Sequence, Union
 
@@ -32,14 +31,14 @@ DEFAULT_REPLAY_UNITS = 50_000
 EXAMPLES = 5
 AUTO_MAX_VALUES = 50  # an automatic segment attribute with more values than this is left out, with a note
 
-Source = Union[str, PathLike, Sequence[Union[str, PathLike]], Any]  # paths, or an in-memory table
+Source = Union[str, Path, Sequence[Union[str, Path]], Any]  # paths, or an in-memory table
 SegmentSpec = Union[str, Sequence[str]]  # a column name, or several tested in combination
 
 
-def audit_logs(source: Source, *, config: Config | str | PathLike | None = None, expect: Expectation | None = None,
+def audit_logs(source: Source, *, config: Config | str | Path | None = None, expect: Expectation | None = None,
                segments: Iterable[SegmentSpec] = (), auto_segments: bool = False,
                columns: Mapping[str, str] | None = None, threshold: float = _stats.DEFAULT_THRESHOLD,
-               config_versions: str | PathLike | None = None, replay_units: int = DEFAULT_REPLAY_UNITS,
+               config_versions: str | Path | None = None, replay_units: int = DEFAULT_REPLAY_UNITS,
                log_format: str | None = None, engine: str | CountingEngine = "duckdb",
                progress: Progress | None = None) -> AuditResult:
     """Audit exposure records for sample ratio mismatch: is each experiment's split of units as designed?
@@ -59,7 +58,7 @@ def audit_logs(source: Source, *, config: Config | str | PathLike | None = None,
     """
     if not 0 < threshold < 1:
         raise AuditError(f"the threshold must be between 0 and 1, found {threshold}")
-    loaded = config if config is None or isinstance(config, Config) else load_config(config)
+    loaded = config if config is None or isinstance(config, Config) else load_config(Path(config))
     if loaded is None and expect is None:
         raise AuditError("give a config or an expected split")
     replay_configs = _load_versions(config_versions) if config_versions is not None else {}
@@ -70,7 +69,7 @@ def audit_logs(source: Source, *, config: Config | str | PathLike | None = None,
     for cfg in replay_configs.values():
         attributes += [key for layer in cfg.layers for exp in layer.experiments for key in exp.eligible]
     counting = engine_named(engine)
-    paths = [source] if isinstance(source, (str, PathLike)) else source
+    paths = [source] if isinstance(source, (str, Path)) else source
     if isinstance(paths, (list, tuple)):
         paths = [str(p) for p in paths]
 
@@ -91,7 +90,7 @@ def audit_logs(source: Source, *, config: Config | str | PathLike | None = None,
         tables.close()
 
 
-def _load_versions(directory: str | PathLike) -> dict[str, Config]:
+def _load_versions(directory: str | Path) -> dict[str, Config]:
     """Every config version in a directory: each YAML file, or each subdirectory, is one version."""
     root = Path(directory)
     if not root.is_dir():
@@ -140,7 +139,8 @@ def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
     rows = tables.census(designs or [])
     if designs is None:
         assert plan.expect is not None
-        designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows if r.problem is None],
+        designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows
+                                     if r.problem is None and r.experiment is not None and r.arm is not None],
                                     plan.expect, plan.config)
     census = _sort_census(rows, designs)
     plan.notes += _near_miss_notes(census.unknown, designs)
@@ -163,8 +163,8 @@ def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
 def _sort_census(rows: Sequence[CensusRow], designs: Sequence[Design]) -> _Census:
     census = _Census()
     by_name: dict[str, list[int]] = defaultdict(list)
-    for index, design in enumerate(designs):
-        by_name[design.experiment].append(index)
+    for position, design in enumerate(designs):
+        by_name[design.experiment].append(position)
     unknown: dict[tuple, UnknownRecords] = {}
     for row in rows:
         census.records += row.records

@@ -11,8 +11,7 @@ from __future__ import annotations
 import csv
 import gzip
 import io
-from contextlib import closing
-from typing import Any, Callable, Iterator, Mapping
+from typing import Any, Callable, Generator, Mapping
 
 from . import _sql
 from ._files import LogFile
@@ -47,7 +46,8 @@ def _with_lines(examples: list[MalformedExample], files: Mapping[str, LogFile],
     lines: dict[int, int] = {}
     for path, by_text in wanted.items():
         remaining = sum(len(v) for v in by_text.values())
-        with closing(_numbered_records(files[path], delimiters.get(path))) as records:
+        records = _numbered_records(files[path], delimiters.get(path))
+        try:
             for number, text in records:
                 unplaced = by_text.get(text[:300])
                 if unplaced:
@@ -55,11 +55,13 @@ def _with_lines(examples: list[MalformedExample], files: Mapping[str, LogFile],
                     remaining -= 1
                     if remaining == 0:
                         break
+        finally:
+            records.close()  # the file closes now, not when the generator is collected
     return [MalformedExample(ex.kind, ex.file, lines[i], ex.detail, ex.text) if i in lines else ex
             for i, ex in enumerate(examples)]
 
 
-def _numbered_records(log: LogFile, delimiter: str | None) -> Iterator[tuple[int, str]]:
+def _numbered_records(log: LogFile, delimiter: str | None) -> Generator[tuple[int, str], None, None]:
     """(first line number, text) of each record: a JSON line, or a CSV row's fields joined by `delimiter`."""
     opener: Callable[..., Any] = gzip.open if log.compressed else open
     with opener(log.path, "rb") as raw:

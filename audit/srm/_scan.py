@@ -98,7 +98,7 @@ class LogScan:
     def _table_select(self, table: Any) -> Select:
         """An in-memory table: a pandas DataFrame, a pyarrow Table, or a DuckDB relation (read through Arrow)."""
         if isinstance(table, duckdb.DuckDBPyRelation):
-            table = table.fetch_arrow_table() if hasattr(table, "fetch_arrow_table") else table.arrow()
+            table = table.to_arrow_table() if hasattr(table, "to_arrow_table") else table.arrow()
         label = f"<{type(table).__module__.split('.')[0]}.{type(table).__name__}>"
         try:
             self.con.register(TABLE_VIEW, table)

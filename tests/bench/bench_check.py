@@ -15,10 +15,10 @@ from pathlib import Path
 
 import yaml
 
-_FAST_SAFE = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
 from audit import check_config
 from bucketing import parse_config
+
+_FAST_SAFE = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 LAYERS = 50
 EXPERIMENTS_PER_LAYER = 40
