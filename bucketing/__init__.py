@@ -5,21 +5,39 @@
     assigner = Assigner("configs/", sink=JsonLinesSink("exposures.jsonl"))
     got = assigner.assign({"learner": "L-1042"}, {"country": "NL", "app_version": "7.4.0"})
     minutes = got.param("lesson_minutes", 10)
+
+Everything public is named in `__all__`; modules whose names start with an
+underscore are private and may change without notice.
 """
 
 from ._assigner import Assigner, Assignment, LayerAssignment
-from ._errors import ConfigError, Problem, SortitionError
+from ._config import Config, format_path
+from ._errors import ConfigError, Location, Problem, SortitionError
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
-from ._loader import Config, load_config, parse_config
+from ._loader import CONFIG_SUFFIXES, load_config, parse_config
+from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
+from ._rules import RULES
 
 __all__ = [
     "Assigner",
     "Assignment",
     "LayerAssignment",
     "Config",
+    "ConfigFile",
+    "Layer",
+    "Experiment",
+    "Arm",
+    "Holdout",
+    "Waiver",
     "load_config",
     "parse_config",
+    "config_schema",
+    "CONFIG_SUFFIXES",
+    "RULES",
+    "experiment_salt",
+    "hundredths",
+    "format_path",
     "bucket_of",
     "BUCKETS",
     "ExposureSink",
@@ -29,6 +47,7 @@ __all__ = [
     "CallbackSink",
     "RECORD_FIELDS",
     "ConfigError",
+    "Location",
     "Problem",
     "SortitionError",
 ]

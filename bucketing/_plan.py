@@ -88,7 +88,7 @@ class ExperimentPlan:
         self.prefix = experiment_salt(layer, exp) + ":"
         edges, total = [], 0
         for arm in exp.arms:
-            total += arm.buckets
+            total += arm.width
             edges.append(total)
         self.thresholds = tuple(edges)
         self.arms = tuple(arm.name for arm in exp.arms)
@@ -151,7 +151,7 @@ class Plan:
         for layer in self.layers:
             by_type.setdefault(layer.unit_type, []).append(layer)
         self.layers_by_type = {t: tuple(ls) for t, ls in by_type.items()}
-        self.holdouts = {h.unit: (h.salt + ":", h.buckets) for h in config.holdouts}
+        self.holdouts = {h.unit: (h.salt + ":", h.width) for h in config.holdouts}
         # What `assign` reads per unit type, as plain tuples: (holdout salt prefix or None,
         # holdout threshold, ((layer name, salt prefix, bucket -> running experiment, forced units), ...)).
         self.hot = {

@@ -17,7 +17,7 @@ def check(sortition):
 
 
 def test_exit_codes_follow_the_contract(check):
-    # DESIGN.md: exit 0 clean, 1 findings of severity error, 2 unreadable input.
+    # docs/SPEC.md §6.1: exit 0 clean, 1 findings of severity error, 2 unreadable input.
     assert check(CHECK_FIXTURES / "clean.yaml", "--today", "2026-11-15").exit_code == 0
     assert check(CHECK_FIXTURES / "traffic-overlap.yaml").exit_code == 1
     assert check(CHECK_FIXTURES / "yaml-syntax.yaml").exit_code == 2

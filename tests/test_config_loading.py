@@ -40,7 +40,7 @@ def only_error(text: str):
 
 def test_clean_config_loads_and_has_a_version():
     config = load_config(Path("c.yaml"), text=BASE)
-    # 12 lower-case hex digits (DESIGN.md), a property of the content: a comment keeps it, another config changes it
+    # 12 lower-case hex digits (docs/SPEC.md §4), a property of the content: a comment keeps it, another config changes it
     assert re.fullmatch(r"[0-9a-f]{12}", config.version), config.version
     assert load_config(Path("c.yaml"), text=BASE + "# a comment\n").version == config.version
     assert load_config(EXAMPLE).version != config.version

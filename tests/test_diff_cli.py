@@ -84,7 +84,7 @@ def test_arm_reorder_switches_units_between_arms(sortition, configs):
 
 
 def test_widening_ranges_keeps_arms_and_passes(sortition, configs):
-    # DESIGN.md: widening an experiment's ranges keeps every unit already in it in the same arm.
+    # docs/SPEC.md §3.4: widening an experiment's ranges keeps every unit already in it in the same arm.
     _edit(configs[1] / "lessons.yaml", '["4000-5999"]', '["4000-6999"]')
     got, data = _diff(sortition, *configs)
     row = _experiment(data, "review-first")
@@ -102,7 +102,7 @@ def test_reassign_ok_reports_instead_of_failing(sortition, configs):
     row = _experiment(data, "new-audio-engine")
     assert got.exit_code == 0
     assert row["verdict"] == "accepted" and row["reassign_ok"] == "ramp to 30 % agreed"
-    # The growing arm comes first, so the ramp only moves units into it (DESIGN.md); 10 of 80 points move.
+    # The growing arm comes first, so the ramp only moves units into it (docs/SPEC.md §3.5); 10 of 80 points move.
     assert row["moves"] == [{"from": "old-engine", "to": "new-engine", "share": pytest.approx(0.1)}]
 
 

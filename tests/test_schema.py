@@ -7,7 +7,7 @@ import jsonschema
 import pytest
 import yaml
 
-from audit.checks import config_schema
+from bucketing import config_schema
 from tests.conftest import CHECK_FIXTURES, EXAMPLE
 
 

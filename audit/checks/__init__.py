@@ -8,7 +8,6 @@ from ._diff import ConfigDiff, ExperimentChange, diff_configs, percent_text
 from ._layout import LayerLayout, Layout, Owner, layout_of, propose, range_text
 from ._lint import DEFAULT_MIN_ARM_UNITS, CheckResult, check_config, finding_dict
 from ._rules import RULES, UNREADABLE_RULES, Rule, meanings, why_not_ignorable
-from ._schema import config_schema
 from ._waivers import Waived
 
 __all__ = [
@@ -16,5 +15,4 @@ __all__ = [
     "diff_configs", "ConfigDiff", "ExperimentChange", "percent_text",
     "layout_of", "Layout", "LayerLayout", "Owner", "propose", "range_text",
     "RULES", "Rule", "UNREADABLE_RULES", "meanings", "why_not_ignorable",
-    "config_schema",
 ]

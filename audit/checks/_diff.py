@@ -20,9 +20,8 @@ from typing import Any
 
 import numpy as np
 
-from bucketing import BUCKETS, Config, Problem, load_config
+from bucketing import BUCKETS, Config, Experiment, Layer, Problem, experiment_salt, load_config
 
-from .._sdk import Experiment, Layer, experiment_salt
 CONTINUING = ("running", "paused")
 ZERO = Fraction(0)
 
@@ -61,11 +60,11 @@ def placement(config: Config, layer: Layer, exp: Experiment) -> Placement:
     return Placement(
         unit_type=layer.unit,
         holdout_salt=holdout.salt if holdout else None,
-        holdout_cut=holdout.buckets if holdout else 0,
+        holdout_cut=holdout.width if holdout else 0,
         layer_salt=layer.effective_salt,
         ranges=exp.ranges,
         salt=experiment_salt(layer, exp),
-        arms=tuple((arm.name, arm.buckets) for arm in exp.arms),
+        arms=tuple((arm.name, arm.width) for arm in exp.arms),
     )
 
 

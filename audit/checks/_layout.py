@@ -11,10 +11,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
-from bucketing import BUCKETS, Config, load_config
+from bucketing import BUCKETS, Config, Layer, hundredths, load_config
 
 from .._errors import AuditError
-from .._sdk import Layer, hundredths
 
 OWNER_MARKS = string.ascii_uppercase + string.ascii_lowercase + string.digits
 

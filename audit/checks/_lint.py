@@ -16,10 +16,9 @@ from datetime import date
 from pathlib import Path
 from typing import Any, Iterable, Iterator, Mapping, Union
 
-from bucketing import BUCKETS, Config, Problem, parse_config
+from bucketing import BUCKETS, Config, Experiment, Problem, parse_config
 
 from .._errors import AuditError
-from .._sdk import Experiment
 from ._rules import UNREADABLE_RULES, why_not_ignorable
 from ._waivers import Waived, apply_waivers
 

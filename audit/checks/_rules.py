@@ -9,7 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Mapping
 
-from .._sdk import SDK_RULES
+from bucketing import RULES as SDK_RULES
 
 
 @dataclass(frozen=True)

@@ -8,9 +8,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from bucketing import Config, Problem
+from bucketing import Config, Experiment, Problem
 
-from .._sdk import Experiment, format_path
 from ._rules import RULES
 
 
@@ -20,19 +19,19 @@ class Waived:
     reason: str
 
 
-def _experiment_anchors(config: Config) -> list[tuple[str, str, tuple, Experiment]]:
-    """(file, local path text, merged path, experiment) of every experiment, to match findings to waivers."""
+def _experiment_anchors(config: Config) -> list[tuple[str, tuple, tuple, Experiment]]:
+    """(file, location in that file, merged path, experiment) of every experiment, to match findings to waivers."""
     anchors = []
     for li, layer in enumerate(config.layers):
         for ei, exp in enumerate(layer.experiments):
             at = ("layers", li, "experiments", ei)
             document, local = config.origin(at)
-            anchors.append((document.file, format_path(local), at, exp))
+            anchors.append((document.file, local, at, exp))
     return anchors
 
 
-def _inside(finding: Problem, file: str, prefix: str) -> bool:
-    return finding.file == file and (finding.path == prefix or finding.path.startswith((prefix + ".", prefix + "[")))
+def _inside(finding: Problem, file: str, prefix: tuple) -> bool:
+    return finding.file == file and finding.loc[:len(prefix)] == prefix
 
 
 def apply_waivers(config: Config, problems: list[Problem]) -> tuple[list[Problem], list[Waived]]:

@@ -11,9 +11,8 @@ from typing import Optional
 
 import typer
 
-from bucketing import Config, ConfigError, parse_config
+from bucketing import CONFIG_SUFFIXES, Config, ConfigError, parse_config
 
-from .._sdk import CONFIG_SUFFIXES
 from ..checks import ConfigDiff, ExperimentChange, diff_configs, meanings
 from ..render import as_json, diff_text, sarif_json
 from ._exit import diff_exit, fail, guarded

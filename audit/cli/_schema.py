@@ -6,7 +6,8 @@ import json
 
 import typer
 
-from ..checks import config_schema
+from bucketing import config_schema
+
 from ._exit import guarded
 
 
