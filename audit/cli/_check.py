@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import sys
-from enum import Enum
 from pathlib import Path
 from typing import Optional
 
@@ -13,13 +12,7 @@ from ..checks import DEFAULT_MIN_ARM_UNITS, RULES, UNREADABLE_RULES, CheckResult
 from ..checks import why_not_ignorable
 from ..render import as_json, check_text, rules_text, sarif_json
 from ._exit import check_exit, fail, guarded
-from ._options import iso_day, weekly_units
-
-
-class FindingsFormat(str, Enum):
-    text = "text"
-    json = "json"
-    sarif = "sarif"
+from ._options import FindingsFormat, iso_day, weekly_units
 
 
 def _stdin_text() -> str:

@@ -5,7 +5,6 @@ from __future__ import annotations
 import dataclasses
 import subprocess
 import tempfile
-from enum import Enum
 from pathlib import Path
 from typing import Optional
 
@@ -16,13 +15,7 @@ from bucketing import CONFIG_SUFFIXES, Config, ConfigError, parse_config
 from ..checks import ConfigDiff, ExperimentChange, diff_configs, meanings
 from ..render import as_json, diff_text, sarif_json
 from ._exit import diff_exit, fail, guarded
-from ._options import config_argument
-
-
-class FindingsFormat(str, Enum):
-    text = "text"
-    json = "json"
-    sarif = "sarif"
+from ._options import FindingsFormat, config_argument
 
 
 def _git(args: list[str], cwd: Path) -> str:

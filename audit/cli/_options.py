@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from datetime import date
+from enum import Enum
 from pathlib import Path
 from typing import Optional
 
@@ -13,6 +14,14 @@ from bucketing import Config, ConfigError, parse_config
 from ._exit import fail
 
 AUTO_SEGMENTS = "auto"  # `--by auto`: every column of the logs that is not a field of the record
+
+
+class FindingsFormat(str, Enum):
+    """`--format` of the commands that report findings."""
+
+    text = "text"
+    json = "json"
+    sarif = "sarif"
 
 
 def key_value_pairs(pairs: list[str], option: str, shape: str) -> dict[str, str]:
