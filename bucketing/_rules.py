@@ -22,6 +22,7 @@ RULES = {
     "yaml-syntax": "a config file is not valid YAML",
     "yaml-limits": "a config file is too large or expands too many aliases",
     "yaml-duplicate-key": "a key appears twice in one mapping",
+    "yaml-ambiguous": "a plain value that YAML 1.1 reads differently from YAML 1.2 (yes, 062, 1_000, 12:30): quote or respell it",
     "schema": "a field has the wrong type, an unknown key, or a required key is missing",
     "name-duplicate": "two layers, experiments of a layer, or arms of an experiment share a name",
     "range-bounds": "a bucket range is reversed or outside 0-9999",
@@ -197,9 +198,6 @@ def _weights(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
         if h is None:
             yield ("weight-precision", at + ("arms", ai, "weight"),
                    f"weight {arm.weight} of arm {arm.name!r} has more than two decimals (buckets are 0.01 % wide)")
-            return
-        if h < 0:
-            yield ("weights-total", at + ("arms", ai, "weight"), f"weight {arm.weight} of arm {arm.name!r} is negative")
             return
         total += h
     if total != 10_000:
