@@ -16,7 +16,7 @@ import json
 from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import IO, Iterable, Iterator
 
 from bucketing import BUCKETS, RULES as SDK_RULES, Config, Problem, parse_config
 
@@ -90,7 +90,7 @@ def ignorable(rule: str) -> str | None:
     return None
 
 
-def check(sources: Iterable[str | Path], options: CheckOptions, *, text: str | None = None) -> CheckResult:
+def check(sources: Iterable[str | Path], options: CheckOptions, *, text: str | IO[bytes] | None = None) -> CheckResult:
     """Read one config (files and directories merged) and return its findings, waivers applied."""
     sources = list(sources)
     config, problems = parse_config(sources, text=text)

@@ -66,11 +66,8 @@ def _print_findings(findings: list[Problem], rules: dict[str, str], fmt: Finding
 
 
 def _check_stdin(options: _check.CheckOptions) -> _check.CheckResult:
-    try:
-        text = sys.stdin.buffer.read().decode("utf-8")
-    except UnicodeDecodeError as exc:
-        fail(f"<stdin>: not UTF-8 text ({exc.reason})")
-    return _check.check(["<stdin>"], options, text=text)
+    # The SDK reads the stream itself, up to the same size cap as a file, never the whole of it.
+    return _check.check(["<stdin>"], options, text=sys.stdin.buffer)
 
 
 def _merge(results: list[_check.CheckResult]) -> _check.CheckResult:

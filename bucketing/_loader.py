@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from datetime import date, datetime
 from pathlib import Path
 from typing import IO, Any, Iterable
@@ -15,10 +16,10 @@ from typing import IO, Any, Iterable
 from pydantic import ValidationError
 
 from ._config import Config, Document, Origin, PathKey
-from ._errors import ConfigError, Problem
+from ._errors import ConfigError, Problem, nearest, shown
 from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile
 from ._rules import structural_problems
-from ._yaml import read_document, read_text, shape_of
+from ._yaml import field_names, read_document, read_text, shape_of
 
 CONFIG_SUFFIXES = (".yaml", ".yml")
 
@@ -46,20 +47,30 @@ def _schema_problems(doc: Document, exc: ValidationError) -> list[Problem]:
     for error in exc.errors(include_url=False):
         loc = tuple(error["loc"])
         message = error["msg"]
+        found = error.get("input")
         if error["type"] == "extra_forbidden":
-            message = f"unknown key {loc[-1]!r}"
+            message = f"unknown key {shown(loc[-1])}" + nearest(str(loc[-1]), field_names(_FILE_SHAPE, loc[:-1]))
         elif error["type"] == "missing":
             message = f"required key {loc[-1]!r} is missing"
         elif error["type"] == "string_pattern_mismatch":
             wanted = _PATTERN_WORDS.get(str(error.get("ctx", {}).get("pattern")), "a different form")
-            message = f"{error['input']!r} is not {wanted}"
-        elif "input" in error and not isinstance(error["input"], (dict, list)):
-            message = f"{message}; found {error['input']!r}"
+            message = f"{shown(found)} is not {wanted}"
+        elif error["type"] == "literal_error" and isinstance(found, str):
+            message = f"{message}; found {shown(found)}" + nearest(found, _literal_choices(error))
+        elif error["type"] == "value_error":
+            message = message.removeprefix("Value error, ")
+        elif "input" in error and not isinstance(found, (dict, list)):
+            message = f"{message}; found {shown(found)}"
             if error["type"] in ("float_type", "int_type") and isinstance(error["input"], str):
                 percent_sign = error["input"].strip().endswith("%")
                 message += " (write the number without the % sign)" if percent_sign else " (write the number without quotes)"
         problems.append(doc.problem("schema", loc, message))
     return problems
+
+
+def _literal_choices(error: Any) -> list[str]:
+    """The allowed words of a Literal field, from pydantic's "'a', 'b' or 'c'" context text."""
+    return re.findall(r"'([^']*)'", str(error.get("ctx", {}).get("expected", "")))
 
 
 def _canonical_value(value: Any) -> Any:

@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections import defaultdict
 from typing import Iterator
 
-from ._errors import Problem
+from ._errors import Problem, shown
 from ._hashing import BUCKETS
 from ._config import Config
 from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_version
@@ -212,5 +212,5 @@ def _conditions(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
         match = CONDITION_PATTERN.match(condition)
         if match is None or parse_version(match.group(2)) is None:
             yield ("condition-syntax", at + ("eligible", attr),
-                   f"condition {condition!r} on {attr!r} is not a version comparison such as '>=7.2'; "
+                   f"condition {shown(condition)} on {shown(attr)} is not a version comparison such as '>=7.2'; "
                    "to match values, write a list such as [ios, android]")

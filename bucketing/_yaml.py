@@ -36,7 +36,7 @@ import yaml
 from pydantic import BaseModel
 
 from ._config import Document, PathKey
-from ._errors import ConfigError, Problem
+from ._errors import ConfigError, Problem, shown
 
 MAX_INPUT_BYTES = 5 * 1024 * 1024
 MAX_NODES = 200_000
@@ -136,6 +136,15 @@ def _child_shape(shape: Shape, key: str | int) -> Shape:
     return inner if kind == "dict" else ANY
 
 
+def field_names(shape: Shape, loc: PathKey) -> list[str]:
+    """The keys a model accepts at `loc` (keys and indexes from the file's root), or [] where keys are free."""
+    for key in loc:
+        shape = _child_shape(shape, key)
+    if isinstance(shape, tuple) and shape[0] == "either":
+        shape = shape[1]
+    return list(shape[1]) if isinstance(shape, tuple) and shape[0] == "model" else []
+
+
 def _core_value(text: str) -> tuple[str, Any]:
     """(tag, value) of a plain scalar under the YAML 1.2 core schema; ValueError when it is out of range."""
     if text in _CORE_NULL:
@@ -169,7 +178,10 @@ def _checked_integer(value: int) -> int:
 
 
 def _yaml11_reading(text: str) -> tuple[str, Any]:
-    """(tag, value) that a YAML 1.1 reader (PyYAML's default) gives the same plain scalar."""
+    """(tag, value) that a YAML 1.1 reader gives the same plain scalar: PyYAML's reading, plus the
+    one-letter booleans of the YAML 1.1 type repository (yaml.org/type/bool.html) that PyYAML leaves out."""
+    if text in ("y", "Y", "n", "N"):
+        return _BOOL, text in ("y", "Y")
     tag = _YAML11.resolve(yaml.ScalarNode, text, (True, False))
     builder = _YAML11_BUILDERS.get(tag)
     if builder is None:
@@ -188,11 +200,14 @@ def _ambiguity(text: str, tag: str, value: Any) -> str | None:
         same = False
     if same:
         return None
+    if old_tag == _INT and tag == _INT:
+        return (f"{shown(text)} has a leading zero, which YAML 1.1 reads as octal ({old_value!r}); "
+                f"write {value!r}, or quote it if it is text")
     now = "text" if tag == _STR else f"{value!r}"
     before = "text" if old_tag == _STR else f"{old_value!r}"
-    return (f"{text!r} means {now} under YAML 1.2, which configs follow, but {before} under YAML 1.1; "
-            "quote it if it is text, otherwise write true/false, or the number without leading zeros, "
-            "'_' or ':'")
+    return (f"{shown(text)} means {now} under YAML 1.2, which configs follow, but {before} under YAML 1.1; "
+            "quote it if it is text, or write it so that both agree: true/false, 1000 not 1_000, "
+            "0.001 or 1.0e-3 not 1e-3")
 
 
 def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
