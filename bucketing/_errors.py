@@ -39,7 +39,10 @@ class Problem:
 
 def shown(value: object, limit: int = 60) -> str:
     """A value as a message quotes it: its repr, cut to `limit` characters so one hostile value cannot flood a line."""
-    text = repr(value)
+    try:
+        text = repr(value)
+    except ValueError:  # an integer of more digits than Python converts to text
+        return f"<{type(value).__name__} too long to show>"
     return text if len(text) <= limit else text[:limit - 4] + "...'"
 
 

@@ -59,7 +59,7 @@ _CORE_FLOAT = re.compile(r"[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9
 _CORE_INF = re.compile(r"[-+]?\.(?:inf|Inf|INF)\Z")
 _CORE_NAN = re.compile(r"\.(?:nan|NaN|NAN)\Z")
 _LEADING_ZERO = re.compile(r"[-+]?0[0-9]")  # octal to YAML 1.1 and to many readers, decimal to YAML 1.2
-_MAX_NUMBER_CHARS = 400  # longer than any float or 64-bit integer can be written without padding
+_MAX_INTEGER_DIGITS = 70  # more than any 64-bit integer needs in base 8, 10 or 16, even with leading zeros
 
 # What a field expects: text, a number, anything (parameters), or a container of shapes.
 TEXT, NUMBER, ANY = "text", "number", "any"
@@ -151,14 +151,12 @@ def _core_value(text: str) -> tuple[str, Any]:
         return _NULL, None
     if text in _CORE_BOOL:
         return _BOOL, _CORE_BOOL[text]
-    if len(text) > _MAX_NUMBER_CHARS:
-        return _STR, text  # no core number is this long: the pattern checks below are skipped on purpose
     if _CORE_INT.match(text):
-        return _INT, _checked_integer(int(text))
+        return _INT, _checked_integer(text, 10)
     if _CORE_OCTAL.match(text):
-        return _INT, _checked_integer(int(text[2:], 8))
+        return _INT, _checked_integer(text[2:], 8)
     if _CORE_HEX.match(text):
-        return _INT, _checked_integer(int(text[2:], 16))
+        return _INT, _checked_integer(text[2:], 16)
     if _CORE_FLOAT.match(text):
         value = float(text)
         if math.isinf(value):
@@ -171,9 +169,11 @@ def _core_value(text: str) -> tuple[str, Any]:
     return _STR, text
 
 
-def _checked_integer(value: int) -> int:
+def _checked_integer(digits: str, base: int) -> int:
+    # Long digit strings are refused before conversion, which is quadratic and capped by Python.
+    value = int(digits, base) if len(digits) <= _MAX_INTEGER_DIGITS else MAX_INTEGER + 1
     if abs(value) > MAX_INTEGER:
-        raise ValueError(f"{value:.3e} is beyond a 64-bit integer")
+        raise ValueError(f"{shown(digits)} is beyond a 64-bit integer")
     return value
 
 
@@ -184,6 +184,8 @@ def _yaml11_reading(text: str) -> tuple[str, Any]:
         return _BOOL, text in ("y", "Y")
     tag = _YAML11.resolve(yaml.ScalarNode, text, (True, False))
     builder = _YAML11_BUILDERS.get(tag)
+    if builder is not None and len(text) > _MAX_INTEGER_DIGITS:
+        return tag, None  # a number too long to matter here; only its kind is compared
     if builder is None:
         return _STR, text  # 1.1 timestamps read as text here, the way a date field wants them
     try:
@@ -203,8 +205,8 @@ def _ambiguity(text: str, tag: str, value: Any) -> str | None:
     if old_tag == _INT and tag == _INT:
         return (f"{shown(text)} has a leading zero, which YAML 1.1 reads as octal ({old_value!r}); "
                 f"write {value!r}, or quote it if it is text")
-    now = "text" if tag == _STR else f"{value!r}"
-    before = "text" if old_tag == _STR else f"{old_value!r}"
+    now = "text" if tag == _STR else shown(value)
+    before = "text" if old_tag == _STR else "a number" if old_value is None else shown(old_value)
     return (f"{shown(text)} means {now} under YAML 1.2, which configs follow, but {before} under YAML 1.1; "
             "quote it if it is text, or write it so that both agree: true/false, 1000 not 1_000, "
             "0.001 or 1.0e-3 not 1e-3")
