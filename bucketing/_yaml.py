@@ -255,18 +255,21 @@ def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
             active.discard(id(node))
 
     def mapping(node: yaml.Node, path: PathKey, shape: Shape) -> dict[str, Any]:
-        winners: dict[str, tuple[yaml.Node, yaml.Node]] = {}
-        for key_node, value_node in merged_pairs(node, path):
-            winners[key_text(key_node, path)] = (key_node, value_node)  # later pairs win: a mapping's own keys last
-        written: dict[str, yaml.Node] = {}
-        for key_node, _ in node.value:
+        written: dict[str, tuple[yaml.Node, yaml.Node]] = {}
+        merges = False
+        for key_node, value_node in node.value:
             if key_node.tag == _MERGE:
+                merges = True
                 continue
             key = key_text(key_node, path)
             if key in written:
                 mark(path + (key,), key_node, first=False)
-                raise fail("yaml-duplicate-key", path + (key,), f"key {key!r} appears twice in the same mapping; keep one")
-            written[key] = key_node
+                raise fail("yaml-duplicate-key", path + (key,), f"key {shown(key)} appears twice in the same mapping; keep one")
+            written[key] = (key_node, value_node)
+        winners = written
+        if merges:  # later pairs win: merged ones in order, then the mapping's own
+            winners = {key_text(k, path): (k, v) for k, v in merged_pairs(node, path) if k.tag != _MERGE}
+            winners.update(written)
         result: dict[str, Any] = {}
         for key, (key_node, value_node) in winners.items():
             mark(path + (key,), key_node, first=False)
@@ -302,6 +305,8 @@ def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
         text, tag = str(node.value), node.tag
         if tag == _STR:
             return text
+        if tag == _PLAIN and shape == TEXT:
+            return None if text in _CORE_NULL else text
         if tag not in (_PLAIN, _INT, _FLOAT, _BOOL, _NULL):
             raise fail("yaml-syntax", path, f"tag {node.tag!r} is not allowed; configs hold plain text, numbers, "
                        "true/false and null")
@@ -313,8 +318,6 @@ def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
             if core_tag != tag:
                 raise fail("schema", path, f"{text!r} is not a valid {tag.rsplit(':', 1)[-1]}")
             return value
-        if shape == TEXT:
-            return None if core_tag == _NULL else text
         if core_tag != _NULL:
             reason = _ambiguity(text, core_tag, value)
             if reason is not None:

@@ -79,7 +79,7 @@ def load_or_refuse(text: str) -> Config | ConfigError:
     return config
 
 
-@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow], derandomize=True)
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow], derandomize=True)
 @given(mutated_config())
 def test_a_mutated_config_loads_or_is_refused_with_a_located_error(text):
     load_or_refuse(text)

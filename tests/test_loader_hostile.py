@@ -19,25 +19,11 @@ import pytest
 
 from bucketing import ConfigError, load_config, parse_config
 
-from .conftest import ROOT
+from .conftest import ROOT, SMALL
 
-BASE = """\
-format: 1
-holdout:
-  - {unit: learner, salt: hold, percent: 2}
-weekly_units: {learner: 1000}
-layers:
-  - name: flow
-    unit: learner
-    experiments:
-      - name: alpha
-        status: running
-        buckets: ["0-4999"]
-        eligible: {app_version: ">=7.2"}
-        arms:
-          - {name: control, weight: 50, params: {size: 1}}
-          - {name: treat, weight: 50}
-"""
+# The shared small config, with the fields these cases attack added: eligibility and weekly_units.
+BASE = SMALL.replace("layers:", "weekly_units: {learner: 1000}\nlayers:", 1).replace(
+    '["0-4999"]\n', '["0-4999"]\n        eligible: {app_version: ">=7.2"}\n', 1)
 CAP = 5 * 1024 * 1024  # the documented input cap (DESIGN "Reading YAML")
 
 
@@ -55,16 +41,16 @@ def test_the_base_config_loads():
 
 
 @pytest.mark.parametrize("old, new, loc_tail", [
-    ("weight: 50}", "weight: 1.0e+308}", ("arms", 1, "weight")),
-    ("weight: 50}", "weight: 1.0e+400}", ("arms", 1, "weight")),
-    ("weight: 50}", "weight: -1.0e+308}", ("arms", 1, "weight")),
-    ("weight: 50}", "weight: .inf}", ("arms", 1, "weight")),
-    ("weight: 50}", "weight: .nan}", ("arms", 1, "weight")),
-    ("weight: 50}", "weight: " + "9" * 5000 + "}", ("arms", 1, "weight")),
-    ("percent: 2", "percent: 1e-300", ("holdout", 0, "percent")),
-    ("percent: 2", "percent: 1.0e-300", ("holdout", 0, "percent")),
-    ("percent: 2", "percent: 0.001", ("holdout", 0, "percent")),
-    ("percent: 2", "percent: .inf", ("holdout", 0, "percent")),
+    ("weight: 50,", "weight: 1.0e+308,", ("arms", 0, "weight")),
+    ("weight: 50,", "weight: 1.0e+400,", ("arms", 0, "weight")),
+    ("weight: 50,", "weight: -1.0e+308,", ("arms", 0, "weight")),
+    ("weight: 50,", "weight: .inf,", ("arms", 0, "weight")),
+    ("weight: 50,", "weight: .nan,", ("arms", 0, "weight")),
+    ("weight: 50,", "weight: " + "9" * 5000 + ",", ("arms", 0, "weight")),
+    ("percent: 10", "percent: 1e-300", ("holdout", 0, "percent")),
+    ("percent: 10", "percent: 1.0e-300", ("holdout", 0, "percent")),
+    ("percent: 10", "percent: 0.001", ("holdout", 0, "percent")),
+    ("percent: 10", "percent: .inf", ("holdout", 0, "percent")),
     ("{learner: 1000}", "{learner: " + "9" * 5000 + "}", ("weekly_units", "learner")),
     ("{learner: 1000}", "{learner: 99999999999999999999}", ("weekly_units", "learner")),
     ("params: {size: 1}", "params: {size: " + "9" * 5000 + "}", ("params", "size")),
@@ -191,11 +177,15 @@ def test_check_reads_stdin_from_dev_zero_to_the_cap_and_stops():
 
 def test_an_error_in_one_file_hides_nothing_in_the_others(tmp_path):
     (tmp_path / "a.yaml").write_text(BASE.replace("status: running", "statu: running"))
-    overlap = BASE.replace("name: flow", "name: other").replace("hold, percent", "hold2, percent") \
-        .replace("holdout:\n  - {unit: learner, salt: hold2, percent: 2}\n", "").replace("weekly_units: {learner: 1000}\n", "")
-    overlap = overlap.replace('          - {name: treat, weight: 50}\n',
-                              '          - {name: treat, weight: 50}\n      - name: beta\n        status: running\n'
-                              '        buckets: ["4000-5999"]\n        arms: [{name: a, weight: 100}]\n')
+    overlap = """\
+format: 1
+layers:
+  - name: other
+    unit: learner
+    experiments:
+      - {name: one, status: running, buckets: ["0-5999"], arms: [{name: a, weight: 100}]}
+      - {name: two, status: running, buckets: ["4000-9999"], arms: [{name: a, weight: 100}]}
+"""
     (tmp_path / "b.yaml").write_text(overlap)
     config, problems = parse_config(tmp_path)
     assert config is None
@@ -210,7 +200,7 @@ def test_an_error_in_one_file_hides_nothing_in_the_others(tmp_path):
     ("status: running", "status: runing", "running"),
     ("status: running", "status: pasued", "paused"),
     ("weekly_units", "weekly_unit", "weekly_units"),
-    ("percent: 2", "precent: 2", "percent"),
+    ("percent: 10", "precent: 10", "percent"),
 ])
 def test_unknown_keys_and_statuses_suggest_the_nearest_valid_one(old, new, suggestion):
     errors = refusal(BASE.replace(old, new, 1))
