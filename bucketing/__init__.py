@@ -13,11 +13,14 @@ underscore are private and may change without notice.
 from ._assigner import Assigner, Assignment, LayerAssignment
 from ._config import Config, format_path
 from ._errors import ConfigError, Location, Problem, SortitionError
+from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, HeldOut, HoldoutCheck, NoExperiment,
+                       NotEligible, NotRunning, Step)
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
 from ._loader import CONFIG_SUFFIXES, load_config, parse_config
 from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
 from ._rules import RULES
+from ._watch import ConfigWatcher, ReloadAttempt
 
 __all__ = [
     "Assigner",
@@ -46,6 +49,19 @@ __all__ = [
     "LoggingSink",
     "CallbackSink",
     "RECORD_FIELDS",
+    "ConfigWatcher",
+    "ReloadAttempt",
+    "Explanation",
+    "HoldoutCheck",
+    "Step",
+    "Forced",
+    "HeldOut",
+    "NoExperiment",
+    "NotRunning",
+    "BeforeStart",
+    "AfterEnd",
+    "NotEligible",
+    "Assigned",
     "ConfigError",
     "Location",
     "Problem",

@@ -15,7 +15,7 @@ from typing import IO, Any, Iterable
 
 from pydantic import ValidationError
 
-from ._config import Config, Document, Origin, PathKey
+from ._config import Config, Document, Origin
 from ._errors import ConfigError, Problem, nearest, shown
 from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile
 from ._rules import structural_problems

@@ -18,7 +18,7 @@ given as a `Shape` derived from the pydantic models:
 Tags other than the core ones (`!!binary`, `!!timestamp`, local tags) are
 refused; so are aliases that contain themselves, nesting deeper than
 `MAX_DEPTH`, numbers beyond 64 bits or beyond a float's range, and inputs
-that are not regular files or over `MAX_INPUT_BYTES`.
+that are not regular files or over `MAX_FILE_BYTES`.
 """
 
 from __future__ import annotations
@@ -38,7 +38,7 @@ from pydantic import BaseModel
 from ._config import Document, PathKey
 from ._errors import ConfigError, Problem, shown
 
-MAX_INPUT_BYTES = 5 * 1024 * 1024
+MAX_FILE_BYTES = 5 * 1024 * 1024
 MAX_NODES = 200_000
 MAX_ALIASES = 1_000
 MAX_DEPTH = 64
@@ -331,7 +331,7 @@ def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
 
 
 def read_text(doc: Document, path: Path, stream: IO[bytes] | None = None) -> str:
-    """A config's text: from `stream` when given, else from the regular file at `path`; at most MAX_INPUT_BYTES.
+    """A config's text: from `stream` when given, else from the regular file at `path`; at most MAX_FILE_BYTES.
 
     Anything but a regular file (a device such as /dev/zero, a FIFO, a
     socket) is refused without reading it; a FIFO is opened without
@@ -343,13 +343,13 @@ def read_text(doc: Document, path: Path, stream: IO[bytes] | None = None) -> str
             with os.fdopen(fd, "rb") as opened:
                 if not stat.S_ISREG(os.fstat(fd).st_mode):
                     raise ConfigError([doc.problem("file-unreadable", (), "not a regular file; give a config file or '-' for stdin")])
-                data = opened.read(MAX_INPUT_BYTES + 1)
+                data = opened.read(MAX_FILE_BYTES + 1)
         else:
-            data = stream.read(MAX_INPUT_BYTES + 1)
+            data = stream.read(MAX_FILE_BYTES + 1)
     except OSError as exc:
         raise ConfigError([doc.problem("file-unreadable", (), exc.strerror or str(exc))]) from None
-    if len(data) > MAX_INPUT_BYTES:
-        raise ConfigError([doc.problem("yaml-limits", (), f"more than {MAX_INPUT_BYTES} bytes; the limit is {MAX_INPUT_BYTES}")])
+    if len(data) > MAX_FILE_BYTES:
+        raise ConfigError([doc.problem("yaml-limits", (), f"more than {MAX_FILE_BYTES} bytes; the limit is {MAX_FILE_BYTES}")])
     try:
         return data.decode("utf-8")
     except UnicodeDecodeError as exc:
