@@ -18,9 +18,7 @@ from datetime import date
 from pathlib import Path
 from typing import Iterable, Iterator
 
-from bucketing import BUCKETS, Config, Problem, parse_config
-from bucketing._loader import format_path
-from bucketing._rules import RULES as SDK_RULES
+from bucketing import BUCKETS, RULES as SDK_RULES, Config, Problem, parse_config
 
 LINT_RULES = {
     "arm-zero-weight": "an arm has weight 0, so it never gets a unit",
@@ -191,19 +189,19 @@ def _underpowered(config: Config, at: tuple, exp, weekly: int, unit_type: str,
                 f"minimum of {minimum:,}: widen the experiment's buckets or this arm's weight", "warning")
 
 
-def _experiment_anchors(config: Config) -> list[tuple[str, str, tuple, object]]:
-    """(file, local path text, merged path, experiment) of every experiment, to match findings to waivers."""
+def _experiment_anchors(config: Config) -> list[tuple[str, tuple, tuple, object]]:
+    """(file, location in that file, merged path, experiment) of every experiment, to match findings to waivers."""
     anchors = []
     for li, layer in enumerate(config.layers):
         for ei, exp in enumerate(layer.experiments):
             at = ("layers", li, "experiments", ei)
             document, local = config.origin(at)
-            anchors.append((document.file, format_path(local), at, exp))
+            anchors.append((document.file, local, at, exp))
     return anchors
 
 
-def _inside(finding: Problem, file: str, prefix: str) -> bool:
-    return finding.file == file and (finding.path == prefix or finding.path.startswith((prefix + ".", prefix + "[")))
+def _inside(finding: Problem, file: str, prefix: tuple) -> bool:
+    return finding.file == file and finding.loc[:len(prefix)] == prefix
 
 
 def _apply_waivers(config: Config, problems: list[Problem]) -> tuple[list[Problem], list[Waived]]:

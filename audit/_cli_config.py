@@ -19,9 +19,7 @@ from typing import Optional
 
 import typer
 
-from bucketing import Config, ConfigError, Problem, parse_config
-from bucketing._loader import CONFIG_SUFFIXES
-from bucketing._model import hundredths
+from bucketing import CONFIG_SUFFIXES, Config, ConfigError, Problem, hundredths, parse_config
 
 from . import _check, _diff, _layout
 from ._cli_common import fail, guarded, key_value_pairs

@@ -20,8 +20,7 @@ from typing import Iterator
 
 import numpy as np
 
-from bucketing import BUCKETS, Config, Problem
-from bucketing._model import Experiment, Layer, experiment_salt
+from bucketing import BUCKETS, Config, Experiment, Layer, Problem, experiment_salt
 
 from ._check import finding_line
 
@@ -69,11 +68,11 @@ def placement(config: Config, layer: Layer, exp: Experiment) -> Placement:
     return Placement(
         unit_type=layer.unit,
         holdout_salt=holdout.salt if holdout else None,
-        holdout_cut=holdout.buckets if holdout else 0,
+        holdout_cut=holdout.width if holdout else 0,
         layer_salt=layer.effective_salt,
         ranges=exp.ranges,
         salt=experiment_salt(layer, exp),
-        arms=tuple((arm.name, arm.buckets) for arm in exp.arms),
+        arms=tuple((arm.name, arm.width) for arm in exp.arms),
     )
 
 

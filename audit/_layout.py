@@ -12,8 +12,7 @@ import json
 import string
 from dataclasses import dataclass
 
-from bucketing import BUCKETS, Config
-from bucketing._model import Layer
+from bucketing import BUCKETS, Config, Layer
 
 FREE_MARK = "."
 CLASH_MARK = "!"

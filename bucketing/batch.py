@@ -33,7 +33,8 @@ from typing import TYPE_CHECKING, Any, Iterable, Iterator, Sequence
 
 from ._assigner import Assigner
 from ._exposure import ExposureSink
-from ._loader import Config, load_config
+from ._config import Config
+from ._loader import load_config
 from ._plan import EPOCH_ORDINAL
 
 if TYPE_CHECKING:

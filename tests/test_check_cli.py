@@ -20,7 +20,7 @@ def _check(*args, input=None):
 
 
 def test_exit_codes_follow_the_contract():
-    # DESIGN.md: exit 0 clean, 1 findings of severity error, 2 unreadable input.
+    # docs/SPEC.md §6.1: exit 0 clean, 1 findings of severity error, 2 unreadable input.
     assert _check(FIXTURES / "clean.yaml", "--today", "2026-11-15").exit_code == 0
     assert _check(FIXTURES / "traffic-overlap.yaml").exit_code == 1
     assert _check(FIXTURES / "yaml-syntax.yaml").exit_code == 2

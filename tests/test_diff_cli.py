@@ -89,7 +89,7 @@ def test_arm_reorder_switches_units_between_arms(configs):
 
 
 def test_widening_ranges_keeps_arms_and_passes(configs):
-    # DESIGN.md: widening an experiment's ranges keeps every unit already in it in the same arm.
+    # docs/SPEC.md §3.4: widening an experiment's ranges keeps every unit already in it in the same arm.
     _edit(configs[1] / "lessons.yaml", '["4000-5999"]', '["4000-6999"]')
     got, data = _diff(*configs)
     row = _experiment(data, "review-first")
@@ -107,7 +107,7 @@ def test_reassign_ok_reports_instead_of_failing(configs):
     row = _experiment(data, "new-audio-engine")
     assert got.exit_code == 0
     assert row["verdict"] == "accepted" and row["reassign_ok"] == "ramp to 30 % agreed"
-    # The growing arm comes first, so the ramp only moves units into it (DESIGN.md); 10 of 80 points move.
+    # The growing arm comes first, so the ramp only moves units into it (docs/SPEC.md §3.5); 10 of 80 points move.
     assert row["moves"] == [{"from": "old-engine", "to": "new-engine", "share": pytest.approx(0.1)}]
 
 

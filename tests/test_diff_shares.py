@@ -2,7 +2,7 @@
 
 The brute force enumerates all 10,000 x 10,000 pairs of the two buckets that
 matter in each case and applies the contract's assignment rule to each pair
-(its own code, written from DESIGN.md, not `_diff`'s); the shares must match
+(its own code, written from docs/SPEC.md, not `_diff`'s); the shares must match
 exactly. The replay assigns a million synthetic unit ids with the SDK under
 both configs and counts; the counts must fall within 5-sigma binomial bounds
 (scipy.stats.binom) of the shares `diff` predicts.
@@ -18,7 +18,7 @@ from scipy import stats
 from audit._diff import diff_configs
 from bucketing import Assigner, load_config
 
-BUCKETS = 10_000  # DESIGN.md: 10,000 buckets per layer
+BUCKETS = 10_000  # docs/SPEC.md §1.1: 10,000 buckets per layer
 GRID = (BUCKETS, BUCKETS)
 
 
@@ -43,7 +43,7 @@ def _config(layers, holdout=None):
 
 
 def _arm_of(weights: list[tuple[str, float]]) -> np.ndarray:
-    """Arm name of each arm bucket: DESIGN.md step 5, arms take consecutive ranges of weight*100 buckets."""
+    """Arm name of each arm bucket: docs/SPEC.md §3.5, arms take consecutive ranges of weight*100 buckets."""
     names = np.empty(BUCKETS, dtype=object)
     edge = 0
     for name, weight in weights:
@@ -133,7 +133,7 @@ def test_layer_salt_change_matches_brute_force_over_old_and_new_layer_buckets():
 def test_holdout_change_with_same_salt_matches_brute_force_over_holdout_and_layer_buckets():
     exp_before = _exp([(0, 4999)], [("c", 50), ("t", 50)])
     exp_after = _exp([(0, 5999)], [("c", 50), ("t", 50)])
-    h = np.arange(BUCKETS)[:, None]  # holdout bucket: DESIGN.md step 2, held out when below percent*100
+    h = np.arange(BUCKETS)[:, None]  # holdout bucket: docs/SPEC.md §3.2 step 3, held out when below percent*100
     b = np.arange(BUCKETS)[None, :]
     in_old = (h >= 200) & _in_ranges(exp_before["ranges"])[b]
     in_new = (h >= 550) & _in_ranges(exp_after["ranges"])[b]

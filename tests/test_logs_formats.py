@@ -192,7 +192,7 @@ layers:
 
 
 def hashing_rule_arm(unit: str) -> str:
-    """The arm by DESIGN.md's hashing rule, computed here with mmh3 directly: murmur3_x86_32, seed 0, mod 10000."""
+    """The arm by the hashing rule of docs/SPEC.md, computed here with mmh3 directly: murmur3_x86_32, seed 0, mod 10000."""
     return "left" if mmh3.hash(f"ea-1:{unit}", 0, signed=False) % 10000 < 5000 else "right"
 
 
