@@ -32,8 +32,8 @@ from time import time
 from typing import TYPE_CHECKING, Any, Iterable, Iterator, Sequence
 
 from ._assigner import Assigner
-from ._exposure import ExposureSink
 from ._config import Config
+from ._exposure import ExposureSink
 from ._loader import load_config
 from ._plan import EPOCH_ORDINAL
 
