@@ -21,6 +21,7 @@ all of them as related places.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
@@ -474,7 +475,12 @@ def changed_lines(old: Config, old_at: tuple[int, int], new: Config, new_at: tup
         other.append((at + ("reassign_ok",), "approval added or changed"))
     places = [_place(new, path, what, True) for path, what in counted]
     places += [_place(new, path, what, False) for path, what in other]
-    return tuple(sorted(places, key=lambda p: (p.file, p.line, p.column)))
+    by_line: dict[tuple[str, int], ChangedLine] = {}
+    for place in places:  # two changes on one line (a flow list of ranges) are one place
+        same = by_line.get((place.file, place.line))
+        by_line[(place.file, place.line)] = place if same is None else dataclasses.replace(
+            same, what=f"{same.what}; {place.what}", counted=same.counted or place.counted)
+    return tuple(sorted(by_line.values(), key=lambda p: (p.file, p.line, p.column)))
 
 
 def _holdout_lines(old: Config, new: Config, old_unit: str, new_unit: str, at: tuple) -> list[tuple[tuple, str]]:
