@@ -106,6 +106,9 @@ def test_non_ascii_digits_in_a_version_are_refused(digit):
     ("format: 1\n? [a, b]\n: c\n", "schema"),
     ("format: 1\n!!binary aGVsbG8=: c\n", "schema"),
     ("format: 1\n--- \nformat: 1\n", "yaml-syntax"),
+    # Found by the long fuzz run: a file that fails validation with layers or holdouts of the wrong shape.
+    ("format: 1\nholdout: x\nlayers: [1, {name: a}]\n", "schema"),
+    ("format: 1\nholdout: [7]\nlayers: {a: 1}\nweekly_units: [1]\n", "schema"),
 ])
 def test_recursion_depth_and_shape_attacks_are_refused(text, rule):
     errors = refusal(text)
