@@ -30,6 +30,8 @@ def _exactly_int(value: Any) -> Any:
 def _iso_date(value: Any) -> Any:
     if isinstance(value, str):
         try:
+            if not re.fullmatch(r"[0-9]{4}-[0-9]{2}-[0-9]{2}", value):
+                raise ValueError  # Python 3.11 would also take 20261103 and 2026-W45-2; 3.10 and the spec do not
             return date.fromisoformat(value)
         except ValueError:
             raise ValueError(f"expected an ISO date such as 2026-11-03, found {value!r}") from None
