@@ -85,6 +85,11 @@ class Experiment(_Strict):
         default=None,
         description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
     )
+    rollout: Name | None = Field(
+        default=None,
+        description="A staged rollout: the name of the arm released to a growing share of units. A change that "
+                    "moves units only into this arm needs no approval; one that moves units out of it does.",
+    )
 
     @property
     def ranges(self) -> tuple[tuple[int, int], ...]:
