@@ -142,6 +142,19 @@ def test_size_rotation_keeps_the_newest_records_in_bounded_files(tmp_path):
     assert kept == list(range(100 - len(kept), 100)) and sink.rotated >= 2
 
 
+def test_a_rotation_that_fails_loses_no_record(tmp_path, caplog):
+    path = tmp_path / "exposures.jsonl"
+    (tmp_path / "exposures.jsonl.1").mkdir()
+    (tmp_path / "exposures.jsonl.1" / "in-the-way").write_text("")
+    sink = JsonLinesSink(path, max_bytes=50, backups=1)
+    with caplog.at_level(logging.WARNING, logger="bucketing.sinks"):
+        for n in range(10):
+            sink.write({"n": n, "pad": "x" * 20})
+    sink.close()
+    assert [strict_json(x)["n"] for x in path.read_text().splitlines()] == list(range(10))
+    assert caplog.records and "could not be rotated" in caplog.records[0].getMessage()
+
+
 def test_sink_failures_are_counted_and_logged_at_most_once_a_minute(example_dir, caplog, monkeypatch):
     clock = [5000.0]
     monkeypatch.setattr("bucketing._exposure.monotonic", lambda: clock[0])
