@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit._diff import diff_configs
+from audit import diff_configs
 from bucketing import Assigner, load_config
 
 BUCKETS = 10_000  # docs/SPEC.md §1.1: 10,000 buckets per layer
@@ -74,7 +74,7 @@ def _brute(in_old: np.ndarray, in_new: np.ndarray, same_arm: np.ndarray) -> dict
 
 
 def _diff_shares(old, new, experiment: str) -> dict[str, Fraction]:
-    (change,) = [c for c in diff_configs(old, new) if c.experiment == experiment]
+    (change,) = [c for c in diff_configs(old, new).changes if c.experiment == experiment]
     return {"kept": change.kept, "switched": change.switched, "left": change.left, "entered": change.entered}
 
 
@@ -125,7 +125,7 @@ def test_layer_salt_change_matches_brute_force_over_old_and_new_layer_buckets():
     in_new = np.broadcast_to(_in_ranges(exp_after["ranges"])[None, :], GRID)
     expected = _brute(in_old, in_new, np.ones(GRID, dtype=bool))
     got = diff_configs(_config(_layer(exp_before, salt="layer-a")), _config(_layer(exp_after, salt="layer-b")))
-    (change,) = got
+    (change,) = got.changes
     assert {"kept": change.kept, "switched": change.switched, "left": change.left, "entered": change.entered} == expected
     assert not change.exact and "layer salt change" in change.causes
 
@@ -196,7 +196,7 @@ def test_replayed_units_fall_within_binomial_bounds_of_the_shares():
     ids = [f"learner-{i}" for i in range(UNITS)]
     before, after = _arms(old, ids), _arms(new, ids)
     confidence = 1 - 2 * stats.norm.sf(SIGMAS)
-    changes = {c.experiment: c for c in diff_configs(old, new)}
+    changes = {c.experiment: c for c in diff_configs(old, new).changes}
     assert set(changes) == {"ramped", "reordered", "redrawn", "moved"}
     for name, change in changes.items():
         layer = "paywall" if name == "moved" else "flow"

@@ -13,6 +13,8 @@ from typing import NamedTuple, Sequence
 
 from scipy import stats
 
+from .._errors import AuditError
+
 DEFAULT_THRESHOLD = 0.0005
 
 
@@ -21,7 +23,7 @@ class FitResult(NamedTuple):
 
     statistic: float
     df: int
-    pvalue: float
+    p_value: float
 
 
 class ArmGap(NamedTuple):
@@ -46,7 +48,7 @@ def expected_shares(weights: Sequence[float]) -> list[float]:
     """Weights (percent or any positive scale) as shares summing to 1."""
     total = float(sum(weights))
     if total <= 0 or any(w < 0 for w in weights):
-        raise ValueError(f"weights must be non-negative with a positive sum, found {list(weights)}")
+        raise AuditError(f"weights must be non-negative with a positive sum, found {list(weights)}")
     return [w / total for w in weights]
 
 
@@ -57,18 +59,18 @@ def chi_square_fit(observed: Sequence[int], shares: Sequence[float]) -> FitResul
     than two arms left, or no units, there is nothing to test (p = 1).
     """
     if len(observed) != len(shares):
-        raise ValueError(f"{len(observed)} observed counts for {len(shares)} expected shares")
+        raise AuditError(f"{len(observed)} observed counts for {len(shares)} expected shares")
     pairs = [(o, s) for o, s in zip(observed, shares) if s > 0]
     total = sum(o for o, _ in pairs)
     if len(pairs) < 2 or total == 0:
         return FitResult(0.0, max(len(pairs) - 1, 0), 1.0)
     scale = sum(s for _, s in pairs)
     expected = [total * s / scale for _, s in pairs]
-    statistic, pvalue = stats.chisquare([o for o, _ in pairs], expected)
-    return FitResult(float(statistic), len(pairs) - 1, float(pvalue))
+    statistic, p_value = stats.chisquare([o for o, _ in pairs], expected)
+    return FitResult(float(statistic), len(pairs) - 1, float(p_value))
 
 
-def chi_square_pvalue(statistic: float, df: int) -> float:
+def chi_square_p_value(statistic: float, df: int) -> float:
     """Upper-tail p-value of a chi-square statistic."""
     return float(stats.chi2.sf(statistic, df))
 
@@ -90,14 +92,14 @@ def arm_gaps(observed: Sequence[int], shares: Sequence[float]) -> list[ArmGap]:
     return gaps
 
 
-def holm_adjust(pvalues: Sequence[float]) -> list[float]:
+def holm_adjust(p_values: Sequence[float]) -> list[float]:
     """Holm-Bonferroni adjusted p-values, in the order given (step-down, made monotone, capped at 1)."""
-    m = len(pvalues)
-    order = sorted(range(m), key=lambda i: pvalues[i])
+    m = len(p_values)
+    order = sorted(range(m), key=lambda i: p_values[i])
     adjusted = [0.0] * m
     running = 0.0
     for rank, index in enumerate(order):
-        running = max(running, min(1.0, (m - rank) * pvalues[index]))
+        running = max(running, min(1.0, (m - rank) * p_values[index]))
         adjusted[index] = running
     return adjusted
 
@@ -121,9 +123,9 @@ def cumulative_fits(daily: Sequence[Sequence[int]], shares: Sequence[float]) -> 
     return fits
 
 
-def first_crossing(pvalues: Sequence[float], threshold: float) -> int | None:
+def first_crossing(p_values: Sequence[float], threshold: float) -> int | None:
     """Index of the first p-value below the threshold, or None."""
-    return next((i for i, p in enumerate(pvalues) if p < threshold), None)
+    return next((i for i, p in enumerate(p_values) if p < threshold), None)
 
 
 def share_interval(count: int, total: int, confidence: float = 0.95) -> tuple[float, float]:
@@ -149,7 +151,7 @@ def proportion_test(hits: int, total: int, rest_hits: int, rest_total: int) -> f
 DEFAULT_CONCENTRATION = 1000.0  # prior share SD about 1.6 points at 50/50: tuned to the small imbalances SRM is about
 
 
-def sequential_pvalues(daily: Sequence[Sequence[int]], shares: Sequence[float],
+def sequential_p_values(daily: Sequence[Sequence[int]], shares: Sequence[float],
                        concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
     """Anytime-valid p-values of the split after each day, safe to look at every day.
 

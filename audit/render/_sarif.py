@@ -8,6 +8,7 @@ review tools can show what a rule is for.
 
 from __future__ import annotations
 
+import json
 from importlib import metadata
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Protocol
@@ -19,12 +20,18 @@ LEVELS = {"error": "error", "warning": "warning", "note": "note"}
 
 
 class LocatedFinding(Protocol):
-    rule: str
-    severity: str
-    file: str
-    line: int
-    column: int
-    message: str
+    @property
+    def rule(self) -> str: ...
+    @property
+    def severity(self) -> str: ...
+    @property
+    def file(self) -> str: ...
+    @property
+    def line(self) -> int: ...
+    @property
+    def column(self) -> int: ...
+    @property
+    def message(self) -> str: ...
 
 
 def tool_version() -> str:
@@ -77,3 +84,8 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
         "version": SARIF_VERSION,
         "runs": [{"tool": {"driver": driver}, "columnKind": "unicodeCodePoints", "results": results}],
     }
+
+
+def sarif_json(findings: Iterable[LocatedFinding], rules: Mapping[str, str]) -> str:
+    """The SARIF log as indented JSON, for stdout."""
+    return json.dumps(sarif_log(findings, rules), indent=2, ensure_ascii=False)

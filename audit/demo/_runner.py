@@ -1,4 +1,4 @@
-"""CLI command `demo`: writes and runs the demo scenario end to end.
+"""The demo runner: writes the demo scenario's files and runs it end to end.
 
 The demo runs the real `sortition` commands, as a user would type them, on
 the invented language-learning scenario of configs_example/: assign a few learners,
@@ -17,9 +17,10 @@ import sys
 from dataclasses import dataclass
 from pathlib import Path
 
-import typer
+from typing import Callable
 
-from ._cli_common import fail, guarded
+from .._errors import AuditError
+from ._logs import write_demo_logs
 
 # Edits to configs_example/lessons.yaml that make the two bad changes of the story.
 OVERLAP_EDIT = ('buckets: ["4000-5999"]', 'buckets: ["3500-5999"]')
@@ -35,14 +36,14 @@ class Step:
     why: str
 
 
-def _run(step: Step, number: int, total: int) -> subprocess.CompletedProcess:
+def _run(step: Step, number: int, total: int, echo: Callable[[str], None]) -> subprocess.CompletedProcess:
     shown = " ".join(a if " " not in a else repr(a) for a in step.args)
-    typer.echo(f"\n== {number}/{total} {step.title}\n   {step.why}\n\n$ sortition {shown}")
+    echo(f"\n== {number}/{total} {step.title}\n   {step.why}\n\n$ sortition {shown}")
     done = subprocess.run([sys.executable, "-m", "audit", *step.args], capture_output=True, text=True)
     output = done.stdout if done.stdout.strip() else done.stderr
-    typer.echo(output.rstrip())
+    echo(output.rstrip())
     verdict = "as expected" if done.returncode == step.expect else f"UNEXPECTED, wanted {step.expect}"
-    typer.echo(f"[exit {done.returncode}: {verdict}]")
+    echo(f"[exit {done.returncode}: {verdict}]")
     return done
 
 
@@ -53,13 +54,16 @@ def _changed_copy(configs: Path, target: Path, edit: tuple[str, str]) -> Path:
     lessons = target / "lessons.yaml"
     text = lessons.read_text(encoding="utf-8")
     if edit[0] not in text:
-        fail(f"{lessons}: the demo expects configs_example's lessons.yaml; it has been edited")
+        raise AuditError(f"{lessons}: the demo expects configs_example's lessons.yaml; it has been edited")
     lessons.write_text(text.replace(edit[0], edit[1], 1), encoding="utf-8")
     return target
 
 
-def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int) -> int:
-    from ._demo_logs import write_demo_logs
+def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int,
+             echo: Callable[[str], None] = print) -> int:
+    """Write the demo's changed configs and invented logs into `out`, run each step; 0 when all behaved."""
+    if not configs.is_dir():
+        raise AuditError(f"{configs}: no such directory; run the demo from the repository top, or give its configs")
 
     out.mkdir(parents=True, exist_ok=True)
     overlap = _changed_copy(configs, out / "change-overlap", OVERLAP_EDIT)
@@ -84,13 +88,13 @@ def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int) -> i
         Step("The same audit as a report to share", audit_args + ["--format", "html", "--out", str(report)], 1,
              "A single HTML file that opens offline in any browser."),
     ]
-    results = [_run(step, i, len(steps)) for i, step in enumerate(steps, start=1)]
+    results = [_run(step, i, len(steps), echo) for i, step in enumerate(steps, start=1)]
     audit_json = subprocess.run([sys.executable, "-m", "audit", *audit_args, "--format", "json"],
                                 capture_output=True, text=True)
     found = _fault_found(audit_json.stdout, logs.fault)
-    typer.echo(f"\n== Planted: {_describe(logs.fault)}")
-    typer.echo(f"== Found by the audit: {'yes, localised to the same segment' if found else 'NO'}")
-    typer.echo(f"== Report: {report}")
+    echo(f"\n== Planted: {_describe(logs.fault)}")
+    echo(f"== Found by the audit: {'yes, localised to the same segment' if found else 'NO'}")
+    echo(f"== Report: {report}")
     ok = found and all(r.returncode == s.expect for r, s in zip(results, steps))
     return 0 if ok else 1
 
@@ -112,22 +116,3 @@ def _fault_found(audit_stdout: str, fault: dict | None) -> bool:
             localised = (result.get("localised") or {}).get("by", {})
             return localised == fault["segment"]
     return False
-
-
-def register(app: typer.Typer) -> None:
-    @app.command("demo", epilog="Example: sortition demo --out demo-output")
-    def demo(
-        out: Path = typer.Option(Path("demo-output"), "--out", help="Folder for the changed configs, logs and report."),
-        configs: Path = typer.Option(Path("configs_example"), "--configs", help="The demo scenario's configs."),
-        learners: int = typer.Option(60_000, "--learners", min=1000, help="Signed-in learners in the invented logs."),
-        days: int = typer.Option(14, "--days", min=7, max=60, help="Days of invented logs."),
-        seed: int = typer.Option(2026, "--seed", help="Seed of the invented logs."),
-    ) -> None:
-        """Run the whole job on the invented demo scenario: assign, check, diff, layout, and the SRM audit."""
-
-        def run() -> int:
-            if not configs.is_dir():
-                fail(f"{configs}: no such directory; run the demo from the repository top, or pass --configs")
-            return run_demo(configs, out, learners, days, seed)
-
-        guarded(run)

@@ -1,4 +1,4 @@
-"""CLI command `srm`: the sample-ratio-mismatch audit of exposure logs."""
+"""`sortition srm`: the sample-ratio-mismatch audit of exposure logs."""
 
 from __future__ import annotations
 
@@ -12,12 +12,12 @@ from typing import TYPE_CHECKING, Optional
 
 import typer
 
-from bucketing import load_config
+from ..render import as_json, srm_text
+from ._exit import fail, guarded, srm_exit
+from ._options import column_map, expectation, segment_terms
 
-from ._cli_common import fail, guarded
-
-if TYPE_CHECKING:  # the audit's modules load DuckDB and SciPy: imported when `srm` runs, not at start-up
-    from ._srm_model import AuditResult
+if TYPE_CHECKING:  # the audit loads SciPy (and its engine DuckDB): imported when `srm` runs, not at start-up
+    from ..srm import AuditResult
 
 
 class SrmFormat(str, Enum):
@@ -48,26 +48,14 @@ class _StderrProgress:
         sys.stderr.flush()
 
 
-def render(result: AuditResult, fmt: str) -> str:
-    """The audit in one of the formats of `--format`."""
-    if fmt == "json":
-        from ._report_json import render_json
-        return render_json(result)
-    if fmt == "html":
-        from ._report_html import render_html
-        return render_html(result)
-    from ._report_text import render_text
-    return render_text(result)
+def _report(result: AuditResult, fmt: SrmFormat) -> str:
+    if fmt is SrmFormat.json:
+        return as_json(result)
+    if fmt is SrmFormat.html:
+        from ..render.html_report import srm_html  # SciPy's interval, loaded for HTML reports only
 
-
-def exit_code(result: AuditResult, strict: bool) -> int:
-    """0 when every split matches its design, 1 on any SRM, 2 when --strict and records were malformed."""
-    if strict and result.malformed.total:
-        first = result.malformed.examples[0] if result.malformed.examples else None
-        where = f"{first.file}:{first.line}: " if first and first.line else (f"{first.file}: " if first else "")
-        fail(f"{where}{first.detail if first else 'malformed record'} "
-             f"({result.malformed.total} malformed record(s); --strict stops on the first kind)")
-    return 1 if result.any_srm else 0
+        return srm_html(result)
+    return srm_text(result)
 
 
 def _stdin_to_file(directory: str) -> str:
@@ -81,7 +69,7 @@ def register(app: typer.Typer) -> None:
     @app.command(
         "srm",
         epilog="Example: sortition srm logs/ --config configs_example --by country,platform,app_version "
-        "--format html --out srm.html   (exit 0: no mismatch, 1: mismatch, 2: unreadable input)",
+        "--format html --out srm.html   (exit 0: no mismatch, 1: mismatch, or malformed records with --strict, 2: unreadable input)",
     )
     def srm(
         logs: list[str] = typer.Argument(..., help="Log files, globs or directories (.jsonl, .csv, .tsv, .parquet, "
@@ -101,7 +89,7 @@ def register(app: typer.Typer) -> None:
                                                   "mismatch (default 0.0005, per Fabijan et al., KDD 2019)."),
         fmt: SrmFormat = typer.Option(SrmFormat.text, "--format", help="text, json or html."),
         out: Optional[Path] = typer.Option(None, "--out", help="Write the report to this file instead of stdout."),
-        strict: bool = typer.Option(False, "--strict", help="Exit 2 if any record is malformed."),
+        strict: bool = typer.Option(False, "--strict", help="Count malformed records as findings: exit 1 if any."),
         replay_units: Optional[int] = typer.Option(None, "--replay-units", help="Units per experiment whose arm is "
                                                    "recomputed from the config (a sample; default 50,000); 0 for all."),
         log_format: Optional[str] = typer.Option(None, "--log-format", help="jsonl, csv, tsv or parquet, for "
@@ -111,33 +99,30 @@ def register(app: typer.Typer) -> None:
         """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
 
         def run() -> int:
-            from ._logs import LogError, parse_column_map
-            from ._srm import DEFAULT_REPLAY_UNITS, audit_logs, parse_expectation, parse_terms
-            from ._stats import DEFAULT_THRESHOLD
+            from ..srm import DEFAULT_REPLAY_UNITS, DEFAULT_THRESHOLD, LOG_FORMATS, audit_logs
 
             cutoff = DEFAULT_THRESHOLD if threshold is None else threshold
             if not 0 < cutoff < 1:
                 fail(f"--threshold must be between 0 and 1, found {cutoff}")
-            if log_format is not None and log_format not in ("jsonl", "csv", "tsv", "parquet"):
+            if log_format is not None and log_format not in LOG_FORMATS:
                 fail(f"--log-format must be jsonl, csv, tsv or parquet, found {log_format!r}")
-            loaded = load_config(config) if config is not None else None
+            terms, automatic = segment_terms(by)
+            expected = expectation(expect)
+            if config is None and expected is None:
+                fail("give a config (--config) or an expected split (--expect 50,50)")
             with tempfile.TemporaryDirectory(prefix="sortition-srm-") as scratch:
                 sources = [_stdin_to_file(scratch) if s == "-" else s for s in logs]
-                try:
-                    result = audit_logs(
-                        sources, config=loaded, expectation=parse_expectation(expect) if expect else None,
-                        terms=parse_terms(by), columns=parse_column_map(column), threshold=cutoff,
-                        versions=config_versions,
-                        replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units, log_format=log_format,
-                        progress=None if quiet else _StderrProgress())
-                except LogError as exc:
-                    fail(str(exc))
-            report = render(result, fmt.value)
+                result = audit_logs(
+                    sources, config=config, expect=expected, segments=terms, auto_segments=automatic,
+                    columns=column_map(column), threshold=cutoff, config_versions=config_versions,
+                    replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units,
+                    log_format=log_format, progress=None if quiet else _StderrProgress())
+            report = _report(result, fmt)
             if out is not None:
                 out.write_text(report, encoding="utf-8")
                 typer.echo(f"wrote {out}", err=True)
             else:
                 sys.stdout.write(report)
-            return exit_code(result, strict)
+            return srm_exit(result, strict)
 
         guarded(run)

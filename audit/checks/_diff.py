@@ -1,4 +1,4 @@
-"""`sortition diff`: what a config change does to the units of each experiment.
+"""`diff_configs`: what a config change does to the units of each experiment.
 
 A unit's place in an experiment is decided by three buckets, each a hash
 under its own salt: the holdout bucket, the layer bucket and the arm bucket.
@@ -13,23 +13,15 @@ cannot be counted from buckets; a change there is named with an unknown share.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import Iterator
+from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from bucketing import BUCKETS, Config, Experiment, Layer, Problem, experiment_salt
+from bucketing import BUCKETS, Config, Experiment, Layer, Problem, experiment_salt, load_config
 
-from ._check import finding_line
-
-DIFF_RULES = {
-    "reassign-running": "a running experiment would move units to another arm or drop them",
-    "reassign-accepted": "a running experiment moves units, and the new config says why (`reassign_ok`)",
-    "share-unknown": "a running experiment's eligibility or dates change; how many units move cannot be counted",
-    "running-removed": "a running experiment is removed from the config",
-}
 CONTINUING = ("running", "paused")
 ZERO = Fraction(0)
 
@@ -155,26 +147,83 @@ def _exact(old: Placement, new: Placement) -> bool:
     return holdout_same and layer_same and arms_same
 
 
-@dataclass(frozen=True)
+def _number(share: Fraction | None) -> float | None:
+    return None if share is None else float(share)
+
+
+def percent_text(share: Fraction | None) -> str:
+    """A share as the messages and reports print it: '12.50 %', or '-' when unknown."""
+    return "-" if share is None else f"{float(share) * 100:.2f} %"
+
+
+@dataclass(frozen=True, kw_only=True)
 class ExperimentChange:
+    """What a change does to one experiment: shares of its units kept, switched, left and entered, and why."""
+
     layer: str
     experiment: str
     status: str
     old_status: str | None
     presence: str  # "both", "added" or "removed"
-    kept: Fraction | None  # shares of the units the experiment held before
-    switched: Fraction | None
-    left: Fraction | None
-    entered: Fraction | None
-    old_traffic: Fraction | None  # shares of all units of the unit type
-    new_traffic: Fraction | None
-    exact: bool
-    causes: tuple[str, ...]
-    unknown: tuple[str, ...]  # causes whose share cannot be counted from buckets
-    moves: tuple[tuple[str, str, Fraction], ...]  # (old arm, new arm, share of old units) for switches
-    verdict: str  # "blocked", "accepted", "warn" or "ok"
-    reason: str | None
-    finding: Problem | None
+    kept: Fraction | None = None  # shares of the units the experiment held before
+    switched: Fraction | None = None
+    left: Fraction | None = None
+    entered: Fraction | None = None
+    old_traffic: Fraction | None = None  # shares of all units of the unit type
+    new_traffic: Fraction | None = None
+    exact: bool = True
+    causes: tuple[str, ...] = ()
+    unknown: tuple[str, ...] = ()  # causes whose share cannot be counted from buckets
+    moves: tuple[tuple[str, str, Fraction], ...] = ()  # (old arm, new arm, share of old units) for switches
+    verdict: str = "ok"  # "blocked", "accepted", "warn" or "ok"
+    reason: str | None = None
+    finding: Problem | None = None
+
+    @property
+    def changed(self) -> bool:
+        return self.presence != "both" or bool(self.causes or self.unknown)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "layer": self.layer,
+            "experiment": self.experiment,
+            "status": self.status,
+            "old_status": self.old_status,
+            "presence": self.presence,
+            "kept_share": _number(self.kept),
+            "switched_share": _number(self.switched),
+            "left_share": _number(self.left),
+            "entered_share": _number(self.entered),
+            "old_traffic": _number(self.old_traffic),
+            "new_traffic": _number(self.new_traffic),
+            "exact": self.exact,
+            "cause": "; ".join(self.causes + tuple(f"{c} (share unknown)" for c in self.unknown)),
+            "causes": list(self.causes),
+            "unknown_share_causes": list(self.unknown),
+            "moves": [{"from": a, "to": b, "share": float(s)} for a, b, s in self.moves],
+            "verdict": self.verdict,
+            "reassign_ok": self.reason,
+        }
+
+
+@dataclass(frozen=True)
+class ConfigDiff:
+    """Every experiment of either version of a config, and what the change does to it."""
+
+    changes: tuple[ExperimentChange, ...]
+
+    @property
+    def findings(self) -> list[Problem]:
+        return [c.finding for c in self.changes if c.finding is not None]
+
+    @property
+    def blocked(self) -> int:
+        """Running experiments whose units would move without an approval."""
+        return sum(1 for c in self.changes if c.verdict == "blocked")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON output of `sortition diff --format json`, as Python values."""
+        return {"experiments": [c.to_dict() for c in self.changes], "blocked": self.blocked}
 
 
 def _range_cause(old: Placement, new: Placement) -> str | None:
@@ -252,8 +301,17 @@ def _moved_layers(old_index: dict, new_index: dict) -> dict[tuple[str, str], tup
             if len(new_keys) == 1 and len(old_by_name.get(name, [])) == 1}
 
 
-def diff_configs(old: Config | None, new: Config) -> list[ExperimentChange]:
-    """Every experiment of either version, with its shares, causes and verdict, in the new config's order."""
+def diff_configs(old: Config | str | Path | None, new: Config | str | Path) -> ConfigDiff:
+    """What changing config `old` (None: no config yet) into `new` does to every experiment of either.
+
+    Each may be a loaded `Config` or the path of a config file or directory.
+    The result lists every experiment of either version, with its shares,
+    causes and verdict, in the new config's order.
+    """
+    if old is not None and not isinstance(old, Config):
+        old = load_config(old)
+    if not isinstance(new, Config):
+        new = load_config(new)
     old_index, new_index = _index(old), _index(new)
     moved = _moved_layers(old_index, new_index)
     changes = []
@@ -262,20 +320,21 @@ def diff_configs(old: Config | None, new: Config) -> list[ExperimentChange]:
         if old_key is None:
             changes.append(_added(new, li, ei))
         else:
+            assert old is not None  # an experiment with an old key exists in the old config
             changes.append(_compared(old, old_index[old_key], new, (li, ei)))
     matched_old = set(moved.values())
     for key, (li, ei) in old_index.items():
-        if key not in new_index and key not in matched_old:
+        if old is not None and key not in new_index and key not in matched_old:
             changes.append(_removed(old, li, ei, new))
-    return changes
+    return ConfigDiff(tuple(changes))
 
 
 def _added(new: Config, li: int, ei: int) -> ExperimentChange:
     layer = new.layers[li]
     exp = layer.experiments[ei]
     share = traffic(placement(new, layer, exp))
-    return ExperimentChange(layer.name, exp.name, exp.status, None, "added", None, None, None, None,
-                            None, share, True, ("added",), (), (), "ok", None, None)
+    return ExperimentChange(layer=layer.name, experiment=exp.name, status=exp.status, old_status=None,
+                            presence="added", new_traffic=share, causes=("added",))
 
 
 def _removed(old: Config, li: int, ei: int, new: Config) -> ExperimentChange:
@@ -291,8 +350,9 @@ def _removed(old: Config, li: int, ei: int, new: Config) -> ExperimentChange:
                    "experience with no record of when it stopped; set status: done first and remove it later")
         finding = (new.problem("running-removed", ("layers", new_layer, "experiments"), message, "warning")
                    if new_layer is not None else old.problem("running-removed", ("layers", li, "name"), message, "warning"))
-    return ExperimentChange(layer.name, exp.name, exp.status, exp.status, "removed", ZERO, ZERO, Fraction(1), ZERO,
-                            share, None, True, ("removed",), (), (), verdict, None, finding)
+    return ExperimentChange(layer=layer.name, experiment=exp.name, status=exp.status, old_status=exp.status,
+                            presence="removed", kept=ZERO, switched=ZERO, left=Fraction(1), entered=ZERO,
+                            old_traffic=share, causes=("removed",), verdict=verdict, finding=finding)
 
 
 def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[int, int]) -> ExperimentChange:
@@ -302,6 +362,7 @@ def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[i
     new_exp = new_layer.experiments[new_at[1]]
     before, after = placement(old, old_layer, old_exp), placement(new, new_layer, new_exp)
     found, unknown = causes(old_layer, old_exp, before, new_layer, new_exp, after)
+    moves: tuple[tuple[str, str, Fraction], ...]
     if before.unit_type != after.unit_type:
         found.insert(0, f"unit type change ({before.unit_type} → {after.unit_type})")
         old_traffic, new_traffic = traffic(before), traffic(after)
@@ -316,9 +377,11 @@ def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[i
         moves = tuple((a, b, share / shares.old) for (a, b), share in sorted(shares.moves.items()) if a != b)
     at = ("layers", new_at[0], "experiments", new_at[1])
     verdict, finding = _verdict(new, at, old_exp, new_exp, switched, left, found, unknown)
-    return ExperimentChange(new_layer.name, new_exp.name, new_exp.status, old_exp.status, "both", kept, switched,
-                            left, entered, old_traffic, new_traffic, exact, tuple(found), tuple(unknown), moves,
-                            verdict, new_exp.reassign_ok, finding)
+    return ExperimentChange(layer=new_layer.name, experiment=new_exp.name, status=new_exp.status,
+                            old_status=old_exp.status, presence="both", kept=kept, switched=switched, left=left,
+                            entered=entered, old_traffic=old_traffic, new_traffic=new_traffic, exact=exact,
+                            causes=tuple(found), unknown=tuple(unknown), moves=moves, verdict=verdict,
+                            reason=new_exp.reassign_ok, finding=finding)
 
 
 def _verdict(new: Config, at: tuple, old_exp: Experiment, new_exp: Experiment, switched: Fraction, left: Fraction,
@@ -327,7 +390,7 @@ def _verdict(new: Config, at: tuple, old_exp: Experiment, new_exp: Experiment, s
         return "ok", None
     what = ", ".join(found + unknown) or "no named cause"
     if switched > 0 or left > 0:
-        parts = [f"{_percent(share)} of its units would {verb}"
+        parts = [f"{percent_text(share)} of its units would {verb}"
                  for share, verb in ((switched, "switch arm"), (left, "leave")) if share > 0]
         moved = f"{' and '.join(parts)} ({what})"
         if new_exp.reassign_ok:
@@ -343,80 +406,3 @@ def _verdict(new: Config, at: tuple, old_exp: Experiment, new_exp: Experiment, s
     return "ok", None
 
 
-def _percent(share: Fraction | None) -> str:
-    return "-" if share is None else f"{float(share) * 100:.2f} %"
-
-
-def _number(share: Fraction | None) -> float | None:
-    return None if share is None else float(share)
-
-
-def findings(changes: list[ExperimentChange]) -> list[Problem]:
-    return [c.finding for c in changes if c.finding is not None]
-
-
-def exit_code(changes: list[ExperimentChange]) -> int:
-    return 1 if any(c.verdict == "blocked" for c in changes) else 0
-
-
-def change_dict(change: ExperimentChange) -> dict:
-    return {
-        "layer": change.layer,
-        "experiment": change.experiment,
-        "status": change.status,
-        "old_status": change.old_status,
-        "presence": change.presence,
-        "kept_share": _number(change.kept),
-        "switched_share": _number(change.switched),
-        "left_share": _number(change.left),
-        "entered_share": _number(change.entered),
-        "old_traffic": _number(change.old_traffic),
-        "new_traffic": _number(change.new_traffic),
-        "exact": change.exact,
-        "cause": "; ".join(change.causes + tuple(f"{c} (share unknown)" for c in change.unknown)),
-        "causes": list(change.causes),
-        "unknown_share_causes": list(change.unknown),
-        "moves": [{"from": a, "to": b, "share": float(s)} for a, b, s in change.moves],
-        "verdict": change.verdict,
-        "reassign_ok": change.reason,
-    }
-
-
-def render_json(changes: list[ExperimentChange]) -> str:
-    return json.dumps({"experiments": [change_dict(c) for c in changes],
-                       "blocked": sum(1 for c in changes if c.verdict == "blocked")}, indent=2, ensure_ascii=False)
-
-
-def _text_rows(changes: list[ExperimentChange]) -> Iterator[str]:
-    for c in changes:
-        name = f"{c.layer}/{c.experiment}"
-        status = c.status if c.old_status in (None, c.status) else f"{c.old_status}→{c.status}"
-        mark = {"blocked": "BLOCKED", "accepted": "accepted", "warn": "check", "ok": ""}[c.verdict]
-        if c.presence == "added":
-            yield f"{mark:<8} {name}  {status}  new, takes {_percent(c.new_traffic)} of {c.status} traffic"
-            continue
-        if c.presence == "removed":
-            yield f"{mark:<8} {name}  {status}  removed: all its units leave"
-            continue
-        if not (c.causes or c.unknown):
-            continue
-        entered = "-" if c.entered is None else "+" + _percent(c.entered)
-        yield (f"{mark:<8} {name}  {status}  kept {_percent(c.kept)}  switched {_percent(c.switched)}  "
-               f"left {_percent(c.left)}  entered {entered}")
-        basis = "exact bucket counts" if c.exact else "expected shares: a salt changed, so old and new buckets are independent hashes"
-        yield f"{'':<8}   cause: {'; '.join(c.causes) or '-'}  [{basis}]"
-        if c.unknown:
-            yield f"{'':<8}   share unknown: {', '.join(c.unknown)} (depends on unit attributes and days)"
-        for a, b, share in c.moves:
-            yield f"{'':<8}   {a} → {b}: {_percent(share)}"
-        if c.reason:
-            yield f"{'':<8}   reassign_ok: {c.reason}"
-
-
-def render_text(changes: list[ExperimentChange]) -> str:
-    rows = list(_text_rows(changes))
-    blocked = sum(1 for c in changes if c.verdict == "blocked")
-    unchanged = sum(1 for c in changes if c.presence == "both" and not (c.causes or c.unknown))
-    lines = rows + [f"{len(changes)} experiment(s): {unchanged} unchanged, {blocked} blocked"]
-    lines += [finding_line(f) for f in findings(changes) if f.severity == "error"]
-    return "\n".join(lines)

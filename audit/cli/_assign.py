@@ -1,4 +1,4 @@
-"""CLI command `assign`: what the SDK gives one unit, or a file of units."""
+"""`sortition assign`: what the SDK gives one unit, or a file of units."""
 
 from __future__ import annotations
 
@@ -6,7 +6,6 @@ import csv
 import io
 import json
 import sys
-from datetime import date
 from enum import Enum
 from pathlib import Path
 from typing import Iterator, Optional
@@ -15,7 +14,8 @@ import typer
 
 from bucketing import Assigner, Assignment, load_config
 
-from ._cli_common import fail, guarded, key_value_pairs
+from ._exit import fail, guarded
+from ._options import iso_day, key_value_pairs
 
 
 class AssignFormat(str, Enum):
@@ -79,10 +79,12 @@ def register(app: typer.Typer) -> None:
     def assign(
         config: Path = typer.Argument(..., help="Config file or directory."),
         unit: Optional[str] = typer.Option(None, "--unit", help="The unit id to assign."),
-        units: Optional[str] = typer.Option(None, "--units", help="File of unit ids (one per line), or CSV with a 'unit' column and attribute columns; '-' for stdin."),
+        units: Optional[str] = typer.Option(None, "--units", help="File of unit ids (one per line), or CSV with a 'unit' "
+                                            "column and attribute columns; '-' for stdin."),
         unit_type: Optional[str] = typer.Option(None, "--unit-type", help="Unit type of the id; needed when the config has several."),
         attr: list[str] = typer.Option([], "--attr", help="Unit attribute KEY=VALUE, repeatable."),
         day: Optional[str] = typer.Option(None, "--day", help="Assign as of this ISO date (default: today, UTC)."),
+        today: Optional[str] = typer.Option(None, "--today", hidden=True, help="Another name of --day."),
         fmt: AssignFormat = typer.Option(AssignFormat.text, "--format", help="text, json (JSON Lines for --units) or csv."),
     ) -> None:
         """Assign one unit, or a file of units, and print experiments, arms, buckets and parameters."""
@@ -99,7 +101,7 @@ def register(app: typer.Typer) -> None:
                 chosen = types[0]
             elif chosen not in types:
                 fail(f"no layer of the config assigns unit type {chosen!r}; its unit types are {types}")
-            when = date.fromisoformat(day) if day else None
+            when = iso_day(day, "--day") or iso_day(today, "--today")
             assigner = Assigner(loaded)
             extra = key_value_pairs(attr, "--attr", "KEY=VALUE such as country=NL")
             if unit is not None:
@@ -111,6 +113,7 @@ def register(app: typer.Typer) -> None:
                 else:
                     typer.echo(_text(got, chosen))
                 return 0
+            assert units is not None  # exactly one of --unit and --units
             results = (assigner.assign({chosen: uid}, {**extra, **a}, day=when) for uid, a in _read_units(units))
             layer_names = [layer.name for layer in loaded.layers if layer.unit == chosen]
             if fmt is AssignFormat.csv:

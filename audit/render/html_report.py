@@ -10,9 +10,8 @@ from __future__ import annotations
 import math
 from html import escape
 
-from ._report_text import p_text
-from ._srm_model import AuditResult, ExperimentResult
-from ._stats import share_interval
+from ..srm import AuditResult, ExperimentResult, share_interval
+from ._text import p_text
 
 CHART_SEGMENTS = 12
 
@@ -220,7 +219,7 @@ def _data_problems(result: AuditResult) -> str:
     return "".join(parts)
 
 
-def render_html(result: AuditResult) -> str:
+def srm_html(result: AuditResult) -> str:
     mismatches = sum(r.srm for r in result.results)
     tally = [f"<span>{len(result.files)} file(s)</span>", f"<span>{result.records:,} records</span>",
              f"<span>{len(result.results)} experiment(s)</span>",

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from datetime import date, datetime, timedelta
 from pathlib import Path
 
-from bucketing import Assigner, Config, load_config
+from bucketing import Assigner, Assignment, Config, load_config
 
 DEMO_START = date(2026, 11, 3)
 FAULT_EXPERIMENT = "shorter-lessons"
@@ -90,7 +90,7 @@ def write_demo_logs(config: Config | str | Path, out_dir: str | Path, *, seed: i
             attrs = {"country": country, "platform": platform, "app_version": _pick(rng, VERSIONS[platform])}
             first = 0 if rng.random() < 0.25 else rng.randrange(days)
             active = [first] + [d for d in range(first + 1, days) if rng.random() < 0.35]
-            assigned = {}
+            assigned: dict[tuple[bool, ...], Assignment] = {}
             for d in active:
                 got = assigned.get(day_state[d])
                 if got is None:
@@ -122,8 +122,8 @@ def write_demo_logs(config: Config | str | Path, out_dir: str | Path, *, seed: i
     return DemoLogs(out, files, sum(len(x) for x in lines), learners + devices, described, counts)
 
 
-def _record(day: date, rng: random.Random, unit: str, unit_type: str, layer: str, experiment: str, arm: str,
-            version: str, forced: bool, attrs: dict) -> dict:
+def _record(day: date, rng: random.Random, unit: str, unit_type: str, layer: str, experiment: str | None,
+            arm: str | None, version: str | None, forced: bool, attrs: dict) -> dict:
     moment = datetime(day.year, day.month, day.day) + timedelta(seconds=rng.randrange(86_400),
                                                                 milliseconds=rng.randrange(1000))
     return {"ts": moment.isoformat(timespec="milliseconds") + "Z", "unit": unit, "unit_type": unit_type,
@@ -149,9 +149,9 @@ def _plant_noise(assigner: Assigner, rng: random.Random, day_list: list[date], l
         lines[d].append(json.dumps(_record(day_list[d], rng, f"L-{rng.randrange(1000):06d}", "learner", layer,
                                            experiment, arm, assigner.version, False, old_client), separators=(",", ":")))
         counts["retired_experiment_records"] += 1
-    for exp in (e for layer in assigner.config.layers for e in layer.experiments if e.start):
-        before = exp.start - timedelta(1)
-        if before in day_list:
+    for exp in (e for layer in assigner.config.layers for e in layer.experiments):
+        before = exp.start - timedelta(1) if exp.start else None
+        if before is not None and before in day_list:
             d = day_list.index(before)
             for n in range(12):
                 lines[d].append(json.dumps(_record(before, rng, f"L-{rng.randrange(1000):06d}", "learner",
