@@ -205,6 +205,8 @@ def test_assign_many_with_fewer_attributes_than_ids_never_raises():
     assert [g.units["learner"] for g in got] == ["a", "b", "qa-1", "c"]
     assert got[2].arm("flow") == "big" and got[3].arm("flow") is None
     assert assigner.errors["attributes_ran_out"] == 2
+    assert [g.arm("flow") for g in assigner.assign_many("learner", ["qa-1"], 7)] == ["big"]  # type: ignore[arg-type]
+    assert assigner.errors["attributes"] == 1
 
 
 def test_dedupe_forgets_the_least_recently_seen_unit_first():
@@ -226,6 +228,9 @@ def test_records_carry_only_targeted_and_named_attributes():
         {"learner": "qa-1"}, attrs).expose()
     assert set(plain.records[0]) == set(RECORD_FIELDS) | {"country"}
     assert set(named.records[0]) == set(RECORD_FIELDS) | {"country", "platform"}
+    one = MemorySink()
+    assigner_from_yaml(TARGETS_COUNTRY, sink=one, record_attributes="platform").assign({"learner": "qa-1"}, attrs).expose()
+    assert set(one.records[0]) == set(named.records[0]), "one name given as text is that name, not its letters"
 
 
 def test_an_attribute_cannot_overwrite_a_record_field():
