@@ -81,7 +81,8 @@ def test_help_documents_explain():
 def test_explain_json_fields_are_specified(tmp_path, monkeypatch):
     config = tmp_path / "flow.yaml"
     config.write_text(EVERY_REASON)
-    outputs = []
+    plain = run("assign", config, "--unit", "qa-1", "--format", "json")
+    outputs = [json.loads(plain.stdout)]  # the section's first table is the plain result's
     for day in ("2026-11-09", "2026-11-21"):
         out = run("assign", config, "--units", "-", "--explain", "--format", "json", "--day", day,
                   stdin=units_for_every_reason())
