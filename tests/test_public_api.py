@@ -13,7 +13,8 @@ import pytest
 import audit
 import bucketing
 from audit import AuditError, SortitionError, audit_logs, check_config, diff_configs, layout_of
-from tests.conftest import CHECK_FIXTURES, EXAMPLE
+from bucketing import Assigner, MemorySink
+from tests.conftest import CHECK_FIXTURES, EXAMPLE, ROOT
 from tests.invented_logs import invented_records
 
 SPLIT = {"left": 50, "right": 50}
@@ -105,3 +106,19 @@ def test_the_command_line_names_an_unknown_engine(sortition, tmp_path):
     log.write_text('{"ts": "2026-11-04T09:00:00Z", "unit": "L-1", "experiment": "e", "arm": "a"}\n')
     got = sortition("srm", log, "--expect", "100", "--engine", "abacus", "--quiet")
     assert got.exit_code == 2 and "unknown counting engine 'abacus'; the engines are duckdb" in got.stderr
+
+
+def test_the_readme_notebook_snippet_runs(tmp_path, capsys):
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## In a notebook"):]
+    snippet = section[section.index("```python") + len("```python"):section.index("```", section.index("```python") + 3)]
+    sink = MemorySink()
+    assigner = Assigner(EXAMPLE, sink=sink)
+    for i in range(3000):  # invented learners, exposed through the SDK
+        attrs = {"country": ("NL", "DE", "BR")[i % 3], "platform": ("ios", "web")[i % 2], "app_version": "7.4.0"}
+        assigner.assign({"learner": f"n-{i}"}, attrs, day=date(2026, 11, 20)).param("lesson_minutes")
+    pd.DataFrame(sink.records).to_parquet(tmp_path / "exposures.parquet")
+    namespace: dict = {}
+    exec(compile(snippet.replace('"exposures.parquet"', repr(str(tmp_path / "exposures.parquet")))
+                 .replace('"configs/"', repr(str(EXAMPLE))), "README.md", "exec"), namespace)
+    assert namespace["result"].results and "shorter-lessons" in capsys.readouterr().out
