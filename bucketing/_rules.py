@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections import defaultdict
 from typing import Iterator
 
-from ._errors import Problem
+from ._errors import Problem, shown
 from ._hashing import BUCKETS
 from ._config import Config
 from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_version
@@ -22,6 +22,7 @@ RULES = {
     "yaml-syntax": "a config file is not valid YAML",
     "yaml-limits": "a config file is too large or expands too many aliases",
     "yaml-duplicate-key": "a key appears twice in one mapping",
+    "yaml-ambiguous": "a plain value that YAML 1.1 reads differently from YAML 1.2 (yes, 062, 1_000, 12:30): quote or respell it",
     "schema": "a field has the wrong type, an unknown key, or a required key is missing",
     "name-duplicate": "two layers, experiments of a layer, or arms of an experiment share a name",
     "range-bounds": "a bucket range is reversed or outside 0-9999",
@@ -198,9 +199,6 @@ def _weights(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
             yield ("weight-precision", at + ("arms", ai, "weight"),
                    f"weight {arm.weight} of arm {arm.name!r} has more than two decimals (buckets are 0.01 % wide)")
             return
-        if h < 0:
-            yield ("weights-total", at + ("arms", ai, "weight"), f"weight {arm.weight} of arm {arm.name!r} is negative")
-            return
         total += h
     if total != 10_000:
         yield ("weights-total", at + ("arms",),
@@ -214,5 +212,5 @@ def _conditions(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
         match = CONDITION_PATTERN.match(condition)
         if match is None or parse_version(match.group(2)) is None:
             yield ("condition-syntax", at + ("eligible", attr),
-                   f"condition {condition!r} on {attr!r} is not a version comparison such as '>=7.2'; "
+                   f"condition {shown(condition)} on {shown(attr)} is not a version comparison such as '>=7.2'; "
                    "to match values, write a list such as [ios, android]")

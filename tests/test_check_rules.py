@@ -74,13 +74,13 @@ def test_example_configs_have_no_errors(sortition):
     assert [f for f in json.loads(got.stdout)["findings"] if f["severity"] == "error"] == []
 
 
-def test_bytes_that_are_not_utf8_are_unreadable_at_line_1(sortition, tmp_path):
+def test_bytes_that_are_not_utf8_are_unreadable_at_their_line(sortition, tmp_path):
     bad = tmp_path / "latin1.yaml"
     bad.write_bytes("format: 1\n# caf\xe9\n".encode("latin-1"))
     got = _run(sortition, str(bad))
     assert got.exit_code == 2
     (finding,) = json.loads(got.stdout)["findings"]
-    assert (finding["rule"], finding["line"]) == ("file-unreadable", 1)
+    assert (finding["rule"], finding["line"], finding["column"]) == ("file-unreadable", 2, 6)
     assert "UTF-8" in finding["message"]
 
 

@@ -24,6 +24,7 @@ SDK_INTERNAL_TESTS = {
     ROOT / "tests" / "vectors" / "make_vectors.py",  # salt_uses: the generator lists every salt the rules see
     ROOT / "tests" / "test_explain.py",  # REASONS: every reason code of explain is covered
     ROOT / "tests" / "test_exposure_sinks.py",  # pseudonym: the HMAC written in place of unit ids
+    ROOT / "tests" / "test_batch.py",  # _executor_assigner: a Spark worker builds the Assigner of a version once
 }
 
 

@@ -15,6 +15,7 @@ specification writes it out for porters.
 from __future__ import annotations
 
 import hashlib
+import hmac
 import json
 import re
 from datetime import date
@@ -23,7 +24,7 @@ from pathlib import Path
 import mmh3
 import pytest
 
-from bucketing import Assigner, bucket_of, load_config
+from bucketing import Assigner, MemorySink, bucket_of, load_config
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = (ROOT / "docs" / "SPEC.md").read_text(encoding="utf-8")
@@ -241,3 +242,36 @@ def test_config_version_is_the_same_over_several_files(tmp_path):
     (tmp_path / "b-layers.yaml").write_text(layers, encoding="utf-8")
     (tmp_path / "a-holdout.yaml").write_text("format: 1\nholdout:\n" + holdout, encoding="utf-8")
     assert load_config(tmp_path).version == load_config("one.yaml", text=yaml_text).version
+
+
+# -- exposure records ------------------------------------------------------------------------------
+
+def test_pseudonym_example(example_dir, monkeypatch):
+    key, unit, expected = re.search(r'^pseudonym\("(.*)", "(.*)"\) = ([0-9a-f]{64})$', section(r"5\.3 "),
+                                    re.MULTILINE).groups()
+    assert hmac.new(key.encode("utf-8"), unit.encode("utf-8"), hashlib.sha256).hexdigest() == expected
+    monkeypatch.setenv("SORTITION_SPEC_PSEUDONYM_KEY", key)
+    sink = MemorySink()
+    assigner = Assigner(load_config(example_dir), sink=sink, pseudonym_key_env="SORTITION_SPEC_PSEUDONYM_KEY")
+    assigner.assign({"learner": unit}, {"country": "NL"}, day=date(2026, 11, 20)).expose()
+    assert sink.records and {record["unit"] for record in sink.records} == {expected}
+
+
+def test_exposure_record_fields_and_allow_list(example_dir):
+    """§5.1: the eight fields, in their types, and only allow-listed attributes (targeted or named)."""
+    rows = re.findall(r"^\| `(\w+)` \| (text|boolean) \|", section(r"5\.1 "), re.MULTILINE)
+    assert [name for name, _ in rows] == ["ts", "unit", "unit_type", "layer", "experiment", "arm", "config", "forced"]
+    sink = MemorySink()
+    assigner = Assigner(load_config(example_dir), sink=sink, record_attributes=["platform"])
+    attrs = {"country": "NL", "app_version": "7.4.0", "platform": "ios", "email": "someone@example.invalid",
+             "arm": "not-an-arm", "latitude": float("nan")}
+    assigner.assign({"learner": "L-1043"}, attrs, day=date(2026, 11, 20)).expose()
+    assert len(sink.records) == 3
+    for record in sink.records:
+        assert list(record)[:8] == [name for name, _ in rows]
+        for name, kind in rows:
+            assert isinstance(record[name], bool if kind == "boolean" else str)
+        assert re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{3}Z", record["ts"])
+        assert record["arm"] != "not-an-arm" and record["config"] == assigner.version
+        # country and app_version are targeted by paywall's `eligible`; platform is named by the service.
+        assert {k: record[k] for k in list(record)[8:]} == {"country": "NL", "app_version": "7.4.0", "platform": "ios"}
