@@ -14,7 +14,7 @@ from importlib import metadata as _metadata
 
 from ._assigner import Assigner, Assignment, LayerAssignment
 from ._config import Config, format_path
-from ._errors import ConfigError, Location, Problem, SortitionError
+from ._errors import ConfigError, Location, Problem, SortitionError, did_you_mean
 from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, HeldOut, HoldoutCheck, NoExperiment,
                        NotEligible, NotRunning, Step)
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
@@ -71,6 +71,7 @@ __all__ = [
     "NotEligible",
     "Assigned",
     "ConfigError",
+    "did_you_mean",
     "Location",
     "Problem",
     "SortitionError",

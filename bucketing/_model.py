@@ -30,6 +30,8 @@ def _exactly_int(value: Any) -> Any:
 def _iso_date(value: Any) -> Any:
     if isinstance(value, str):
         try:
+            if not re.fullmatch(r"[0-9]{4}-[0-9]{2}-[0-9]{2}", value):
+                raise ValueError  # Python 3.11 would also take 20261103 and 2026-W45-2; 3.10 and the spec do not
             return date.fromisoformat(value)
         except ValueError:
             raise ValueError(f"expected an ISO date such as 2026-11-03, found {value!r}") from None
@@ -82,6 +84,11 @@ class Experiment(_Strict):
     reassign_ok: str | None = Field(
         default=None,
         description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
+    )
+    rollout: Name | None = Field(
+        default=None,
+        description="A staged rollout: the name of the arm released to a growing share of units. A change that "
+                    "moves units only into this arm needs no approval; one that moves units out of it does.",
     )
 
     @property

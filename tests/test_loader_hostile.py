@@ -194,6 +194,24 @@ layers:
     assert any("unknown key 'statu' (did you mean 'status'?)" in p.message for p in problems)
 
 
+def test_a_typo_in_one_layer_hides_nothing_in_another_layer_of_the_same_file():
+    second = """\
+  - name: other
+    unit: learner
+    experiments:
+      - {name: one, status: running, buckets: ["0-5999"], arms: [{name: a, weight: 100}]}
+      - {name: two, status: running, buckets: ["4000-9999"], arms: [{name: a, weight: 100}]}
+"""
+    text = BASE.replace("status: paused", "stauts: paused") + second
+    config, problems = parse_config("one.yaml", text=text)
+    assert config is None
+    assert {(p.rule, p.loc[:2]) for p in problems if p.severity == "error"} >= {
+        ("schema", ("layers", 0)), ("traffic-overlap", ("layers", 1))}
+    overlap = next(p for p in problems if p.rule == "traffic-overlap")
+    assert overlap.line == text.splitlines().index('      - {name: two, status: running, buckets: ["4000-9999"], '
+                                                   'arms: [{name: a, weight: 100}]}') + 1
+
+
 @pytest.mark.parametrize("old, new, suggestion", [
     ("        eligible:", "        eligble:", "eligible"),
     ("    unit: learner\n    experiments", "    unit: learner\n    experiment", "experiments"),
