@@ -10,6 +10,8 @@ Everything public is named in `__all__`; modules whose names start with an
 underscore are private and may change without notice.
 """
 
+from importlib import metadata as _metadata
+
 from ._assigner import Assigner, Assignment, LayerAssignment
 from ._config import Config, format_path
 from ._errors import ConfigError, Location, Problem, SortitionError, did_you_mean
@@ -22,7 +24,13 @@ from ._model import Approval, Arm, ConfigFile, Experiment, Holdout, Layer, Waive
 from ._rules import RULES
 from ._watch import ConfigWatcher, ReloadAttempt
 
+try:  # one version for the distribution, the SDK's and the audit's
+    __version__ = _metadata.version("sortition")
+except _metadata.PackageNotFoundError:  # a source tree that was never installed
+    __version__ = "0+unknown"
+
 __all__ = [
+    "__version__",
     "Assigner",
     "Assignment",
     "LayerAssignment",

@@ -5,6 +5,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+
 from tests.conftest import EXAMPLE
 
 

@@ -13,10 +13,11 @@ the failure as a notification of an unsuccessful invocation.
 from __future__ import annotations
 
 import json
-from importlib import metadata
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Protocol
 from urllib.parse import quote
+
+from bucketing import __version__
 
 SARIF_VERSION = "2.1.0"
 SARIF_SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
@@ -39,13 +40,6 @@ class LocatedFinding(Place, Protocol):
     def severity(self) -> str: ...
     @property
     def message(self) -> str: ...
-
-
-def tool_version() -> str:
-    try:
-        return metadata.version("sortition")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
 
 
 def artifact_uri(file: str, root: Path | None = None) -> str:
@@ -96,7 +90,7 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *, t
         invocation["toolExecutionNotifications"] = [{"level": "error", "message": {"text": failure}}]
     driver = {
         "name": tool,
-        "version": version or tool_version(),
+        "version": version or __version__,
         "rules": [{"id": rule, "shortDescription": {"text": rules[rule]}} for rule in rule_ids],
     }
     return {
