@@ -77,7 +77,8 @@ def command_section(command: str) -> str:
 
 
 def assert_described(command: str, outputs: list) -> None:
-    text = command_section(command)
+    # Code fences out first: their backticks would pair up every later `name` wrongly.
+    text = re.sub(r"^```.*?^```", "", command_section(command), flags=re.MULTILINE | re.DOTALL)
     rows = set(re.findall(r"^\| `([^`]+)`", text, re.MULTILINE))
     words = {word for quoted in re.findall(r"`([^`]+)`", text) for word in re.findall(r"[\w$]+", quoted)}
     words |= {word for braced in re.findall(r"\{([\w, ]+)\}", text) for word in re.findall(r"\w+", braced)}
