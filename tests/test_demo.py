@@ -13,6 +13,8 @@ def test_demo_runs_every_step_and_finds_the_planted_fault(tmp_path):
     assert "UNEXPECTED" not in done.stdout and "Traceback" not in done.stdout + done.stderr
     assert "lessons.yaml:27:9: error traffic-overlap" in done.stdout
     assert "reassign-running" in done.stdout
+    assert "ramp     audio-engine/new-audio-engine" in done.stdout  # the rollout step passes without approval
+    assert "rollout of 'new-engine': 20.00 % → 25.00 % of the experiment" in done.stdout
     assert "Found by the audit: yes" in done.stdout
     report = tmp_path / "srm-report.html"
     assert report.stat().st_size > 10_000 and "<script src=" not in report.read_text(encoding="utf-8")

@@ -13,7 +13,8 @@ from ._exit import demo_exit, guarded
 def register(app: typer.Typer) -> None:
     @app.command("demo", epilog="Example: sortition demo --out demo-output")
     def demo(
-        out: Path = typer.Option(Path("demo-output"), "--out", help="Folder for the changed configs, logs and report."),
+        out: Path = typer.Option(Path("demo-output"), "--out", help="Folder for the changed configs, logs and report; "
+                                 "a later run replaces only what the demo made there (listed in DIR/.sortition-demo)."),
         configs: Path = typer.Option(Path("configs_example"), "--configs", help="The demo scenario's configs."),
         learners: int = typer.Option(60_000, "--learners", min=1000, help="Signed-in learners in the invented logs."),
         days: int = typer.Option(14, "--days", min=7, max=60, help="Days of invented logs."),

@@ -28,7 +28,11 @@ def register(app: typer.Typer) -> None:
         width: int = typer.Option(100, "--width", min=10, max=1000, help="Characters per bar."),
         fmt: TableFormat = typer.Option(TableFormat.text, "--format", help="text or json."),
     ) -> None:
-        """Each layer's 10,000 buckets: who owns what, what is free, and where a new experiment fits."""
+        """Each layer's 10,000 buckets: who owns what, what is free, and where a new experiment fits.
+
+        For a staged rollout (`rollout: ARM`) it also shows the released arm's
+        share of the experiment and of all units of the layer's unit type.
+        """
 
         def run() -> int:
             result = layout_of(config_argument([config]), layer, want)

@@ -6,6 +6,11 @@ check the configs, catch two bad changes before they ship, show the free
 traffic, then write two weeks of exposure logs with a planted fault and let
 the audit find, localise and explain it. Every step checks its exit code, and
 the runner says whether every step behaved as it should.
+
+The demo writes only what it made: a manifest in `--out` (`.sortition-demo`)
+lists the folders and files of earlier runs, which a new run may replace;
+anything else under `--out` with one of those names is left alone, and the
+demo stops before writing anything.
 """
 
 from __future__ import annotations
@@ -22,10 +27,15 @@ from typing import Callable
 from .._errors import AuditError
 from ._logs import write_demo_logs
 
-# Edits to configs_example/lessons.yaml that make the two bad changes of the story.
-OVERLAP_EDIT = ('buckets: ["4000-5999"]', 'buckets: ["3500-5999"]')
-REWEIGHT_EDIT = ("            weight: 50\n            params: {lesson_minutes: 10}\n          - name: short\n            weight: 50",
-                 "            weight: 60\n            params: {lesson_minutes: 10}\n          - name: short\n            weight: 40")
+# Edits to configs_example/ that make the changes of the story: (file, text before, text after), in order.
+OVERLAP_EDIT = [("lessons.yaml", 'buckets: ["4000-5999"]', 'buckets: ["3500-5999"]')]
+REWEIGHT_EDIT = [("lessons.yaml",
+                  "            weight: 50\n            params: {lesson_minutes: 10}\n          - name: short\n            weight: 50",
+                  "            weight: 60\n            params: {lesson_minutes: 10}\n          - name: short\n            weight: 40")]
+RAMP_EDIT = [("audio.yaml", "weight: 20\n", "weight: 25\n"), ("audio.yaml", "weight: 80\n", "weight: 75\n")]
+
+MANIFEST = ".sortition-demo"  # in --out: what earlier runs of the demo made there, one name a line
+MADE = ("change-overlap", "change-reweight", "change-ramp", "logs", "srm-report.html")
 
 
 @dataclass
@@ -47,15 +57,34 @@ def _run(step: Step, number: int, total: int, echo: Callable[[str], None]) -> su
     return done
 
 
-def _changed_copy(configs: Path, target: Path, edit: tuple[str, str]) -> Path:
-    if target.exists():
-        shutil.rmtree(target)
-    shutil.copytree(configs, target)
-    lessons = target / "lessons.yaml"
-    text = lessons.read_text(encoding="utf-8")
-    if edit[0] not in text:
-        raise AuditError(f"{lessons}: the demo expects configs_example's lessons.yaml; it has been edited")
-    lessons.write_text(text.replace(edit[0], edit[1], 1), encoding="utf-8")
+def _claim(out: Path) -> None:
+    """Let the demo write its names under `out`, or refuse, before any write, if one is there and not its own."""
+    manifest = out / MANIFEST
+    ours = set(manifest.read_text(encoding="utf-8").split()) if manifest.is_file() else set()
+    for name in MADE:
+        place = out / name
+        if (place.exists() or place.is_symlink()) and (name not in ours or place.is_symlink()):
+            raise AuditError(f"{place} exists and was not made by `sortition demo`, so the demo leaves it as it is "
+                             "and writes nothing; choose another --out, or move it away")
+    out.mkdir(parents=True, exist_ok=True)
+    manifest.write_text("".join(f"{name}\n" for name in MADE), encoding="utf-8")
+
+
+def _fresh(place: Path) -> Path:
+    """An earlier run's folder (checked by `_claim`), emptied for this run."""
+    if place.is_dir():
+        shutil.rmtree(place)
+    return place
+
+
+def _changed_copy(configs: Path, target: Path, edits: list[tuple[str, str, str]]) -> Path:
+    shutil.copytree(configs, _fresh(target))
+    for file, before, after in edits:
+        path = target / file
+        text = path.read_text(encoding="utf-8")
+        if before not in text:
+            raise AuditError(f"{configs / file}: the demo expects configs_example's {file}; it has been edited")
+        path.write_text(text.replace(before, after, 1), encoding="utf-8")
     return target
 
 
@@ -65,10 +94,11 @@ def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int,
     if not configs.is_dir():
         raise AuditError(f"{configs}: no such directory; run the demo from the repository top, or give its configs")
 
-    out.mkdir(parents=True, exist_ok=True)
+    _claim(out)
     overlap = _changed_copy(configs, out / "change-overlap", OVERLAP_EDIT)
     reweight = _changed_copy(configs, out / "change-reweight", REWEIGHT_EDIT)
-    logs = write_demo_logs(configs, out / "logs", seed=seed, learners=learners, days=days)
+    ramp = _changed_copy(configs, out / "change-ramp", RAMP_EDIT)
+    logs = write_demo_logs(configs, _fresh(out / "logs"), seed=seed, learners=learners, days=days)
     report = out / "srm-report.html"
     audit_args = ["srm", str(out / "logs"), "--config", str(configs), "--by", "country,platform,app_version"]
     steps = [
@@ -81,6 +111,9 @@ def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int,
              "A pull request widens review-first to 3500-5999, into shorter-lessons' buckets; CI names the line."),
         Step("A change that would move learners between arms", ["diff", str(configs), str(reweight)], 1,
              "Another one re-weights the running shorter-lessons 50/50 -> 60/40; diff counts who would switch."),
+        Step("A staged rollout takes its next step", ["diff", str(configs), str(ramp)], 0,
+             "The new audio engine (rollout: new-engine, released arm first) goes 20 % -> 25 %: every learner who "
+             "moves goes into the released arm, so no approval is needed."),
         Step("Where is free traffic", ["layout", str(configs), "--layer", "paywall", "--want", "10"], 0,
              "Each layer's 10,000 buckets: who owns what, and a free range for a new 10 % experiment."),
         Step("Audit two weeks of exposure logs", audit_args, 1,
