@@ -15,6 +15,15 @@ from bucketing import load_config
 from tests.conftest import EXAMPLE, git
 
 
+@pytest.fixture
+def ab_repo(repo):
+    """The example repository with the audio engine as a plain A/B test: every move of its units needs approval."""
+    audio = repo / "configs" / "audio.yaml"
+    audio.write_text(audio.read_text().replace("        rollout: new-engine\n", ""))
+    git(repo, "commit", "-qam", "audio engine as an A/B test")
+    return repo
+
+
 def _set_weights(repo: Path, new_engine: float) -> None:
     """Give the audio rollout's arms new-engine/old-engine the weights new_engine/100 - new_engine."""
     path = repo / "configs" / "audio.yaml"
@@ -49,7 +58,8 @@ def _rules(report: dict) -> list[str]:
     return [f["rule"] for f in report["findings"]]
 
 
-def test_an_approval_passes_its_own_change_and_blocks_the_next_one(sortition, repo):
+def test_an_approval_passes_its_own_change_and_blocks_the_next_one(sortition, ab_repo):
+    repo = ab_repo
     _audio(repo, 25, '"ramp 20 -> 25 %, agreed in review"')
     code, report = _diff(sortition, repo)
     assert code == 0 and _row(report)["verdict"] == "accepted"
@@ -66,7 +76,8 @@ def test_an_approval_passes_its_own_change_and_blocks_the_next_one(sortition, re
     assert stale["severity"] == "warning" and stale["path"].endswith("reassign_ok")
 
 
-def test_a_salt_change_under_an_unchanged_approval_is_blocked(sortition, repo):
+def test_a_salt_change_under_an_unchanged_approval_is_blocked(sortition, ab_repo):
+    repo = ab_repo
     _audio(repo, 25, '"ramp 20 -> 25 %"')
     git(repo, "commit", "-qam", "ramp to 25 % with an approval")
     path = repo / "configs" / "audio.yaml"
@@ -79,7 +90,8 @@ def test_a_salt_change_under_an_unchanged_approval_is_blocked(sortition, repo):
     assert row["switched_share"] == pytest.approx(0.375)
 
 
-def test_changing_the_approval_text_approves_the_next_change(sortition, repo):
+def test_changing_the_approval_text_approves_the_next_change(sortition, ab_repo):
+    repo = ab_repo
     _audio(repo, 25, '"ramp 20 -> 25 %"')
     git(repo, "commit", "-qam", "ramp to 25 %")
     _audio(repo, 5, '"ramp-down 25 -> 5 % after the crash report"')
@@ -88,7 +100,8 @@ def test_changing_the_approval_text_approves_the_next_change(sortition, repo):
     assert _row(report)["approval"]["state"] == "changed" and "reassign-stale" not in _rules(report)
 
 
-def test_an_unchanged_approval_on_an_unmoved_experiment_is_reported_stale_but_does_not_fail(sortition, repo):
+def test_an_unchanged_approval_on_an_unmoved_experiment_is_reported_stale_but_does_not_fail(sortition, ab_repo):
+    repo = ab_repo
     _audio(repo, 25, '"ramp 20 -> 25 %"')
     git(repo, "commit", "-qam", "ramp to 25 %")
     lessons = repo / "configs" / "lessons.yaml"
@@ -101,7 +114,8 @@ def test_an_unchanged_approval_on_an_unmoved_experiment_is_reported_stale_but_do
 
 
 @pytest.mark.parametrize("limit, verdict, code", [(10, "blocked", 1), (20, "accepted", 0), (25, "accepted", 0)])
-def test_the_object_form_approves_at_most_the_share_it_names(sortition, repo, limit, verdict, code):
+def test_the_object_form_approves_at_most_the_share_it_names(sortition, ab_repo, limit, verdict, code):
+    repo = ab_repo
     # 20 -> 40 % with the growing arm first moves 20 of the old-engine's 80 points: 20 % of the experiment's units.
     _audio(repo, 40, f'{{why: "ramp to 40 %", moves_up_to: {limit}}}')
     got, report = _diff(sortition, repo)

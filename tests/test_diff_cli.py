@@ -52,8 +52,9 @@ def test_unchanged_configs_keep_every_unit(sortition, configs):
 ])
 def test_running_experiment_that_moves_units_is_blocked_with_its_cause(sortition, configs, file, old, new, experiment, cause):
     _edit(configs[1] / file, old, new)
-    if file == "audio.yaml":
+    if file == "audio.yaml":  # as a plain A/B test: a staged rollout would let this ramp through (test_rollouts.py)
         _edit(configs[1] / file, "weight: 80", "weight: 75")
+        _edit(configs[1] / file, "        rollout: new-engine\n", "")
     if old == "weight: 34":  # 34/33/33 -> 30/33/37: units move into review-first and into review-mixed
         _edit(configs[1] / file, "name: review-mixed\n            weight: 33", "name: review-mixed\n            weight: 37")
     got, data = _diff(sortition, *configs)
@@ -98,6 +99,7 @@ def test_reassign_ok_reports_instead_of_failing(sortition, configs):
     _edit(configs[1] / "audio.yaml", "weight: 20", "weight: 30")
     _edit(configs[1] / "audio.yaml", "weight: 80", "weight: 70")
     _edit(configs[1] / "audio.yaml", "owner: platform-team", 'owner: platform-team\n        reassign_ok: "ramp to 30 % agreed"')
+    _edit(configs[1] / "audio.yaml", "        rollout: new-engine\n", "")  # an A/B test now: the move needs approval
     got, data = _diff(sortition, *configs)
     row = _experiment(data, "new-audio-engine")
     assert got.exit_code == 0
