@@ -272,9 +272,10 @@ def _segment_counts(tables: UnitTables, plan: _Plan, index: int) -> list[tuple[t
 def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, result: ExperimentResult,
                  segments: list[SegmentResult]) -> ExperimentResult:
     """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
-    units = tables.replay_sample(index, plan.replay_units)
     fallback = plan.config or next(iter(plan.replay_configs.values()))
-    summary, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
+    arms = tables.replay_arms(index, plan.replay_units, design, plan.replay_configs, fallback)
+    summary, mismatched, notes = replay(arms, design, plan.replay_configs, fallback)
+    units = [unit for unit, _ in arms]
     plan.notes += notes
     replayed = []
     for segment in segments:
