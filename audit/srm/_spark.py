@@ -43,6 +43,7 @@ from ._sql import (
 
 VERSION_COLUMNS = ["config", "unit_type"]
 JSON_SAMPLE_LINES = 10_000  # JSON Lines have no header: their columns are the keys of the first records
+CUBE_MAX_ROWS = 200_000  # above this many (experiment, arm, day, attributes) combinations, one Spark job per question
 
 
 @dataclass(frozen=True)
@@ -54,11 +55,13 @@ class SparkTable:
 
 
 def spark_session(conf: Mapping[str, str] | None = None) -> Any:
-    """The active session, else one for `SPARK_REMOTE`, else a local one; `conf` is applied to a new one."""
+    """The active session, else one for `SPARK_REMOTE`, else a local one; `conf` is applied to either."""
     from pyspark.sql import SparkSession
 
     active = SparkSession.getActiveSession()
     if active is not None:
+        for key, value in (conf or {}).items():
+            active.conf.set(key, value)  # a setting fixed at start-up cannot change: Spark says so
         return active
     builder = SparkSession.builder.appName("sortition-srm")
     if os.environ.get("SPARK_REMOTE"):
@@ -106,6 +109,12 @@ def _functions() -> Any:
     return F
 
 
+def _window() -> Any:
+    from pyspark.sql import Window
+
+    return Window
+
+
 def _is_uri(path: str) -> bool:
     return "://" in path and not path.startswith("file://")
 
@@ -124,7 +133,7 @@ class _Reader:
         self.local_files: dict[str, LogFile] = {}
         self.delimiters: dict[str, str] = {}
         self.jsonl: list[str] = []
-        self._file_names: dict[str, str] = {}  # Spark's file URI -> the path as given
+        self.persisted: list[Any] = []  # frames kept in the cluster until the audit closes
 
     # sources
 
@@ -273,7 +282,9 @@ class _Reader:
                T.StructField("_object", T.BooleanType())]
         out += [T.StructField(f"_v{i}", T.StringType()) for i in range(len(fields))]
         out += [T.StructField(f"_t{i}", T.StringType()) for i in range(len(fields))]
-        parsed = lines.mapInPandas(_json_values(fields), T.StructType(out))
+        # kept in the cluster: the census and the malformed examples read it again, and parsing is the slow part
+        parsed = lines.mapInPandas(_json_values(fields), T.StructType(out)).persist()
+        self.persisted.append(parsed)
         keys = list(RECORD_FIELDS) + ["a:" + a for a in self.names.attributes]
         values = {k: F.col(f"_v{i}") for i, k in enumerate(keys)}
         types = {k: F.col(f"_t{i}") for i, k in enumerate(keys)}
@@ -472,7 +483,7 @@ class SparkUnitTables:
         self.attributes = names.attributes
         self.layer_logged = "layer" in reader.present
         self.kept = (VERSION_COLUMNS if keep_versions else []) + [names.attribute_column(a) for a in self.attributes]
-        self.cached: list[Any] = []
+        self.cached: list[Any] = reader.persisted
         self.arms: list[int] = []
 
     def _collect(self, frame: Any) -> list[Any]:
@@ -534,13 +545,11 @@ class SparkUnitTables:
                 for file, unit, count, low, high in self._collect(grouped)]
 
     def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
-        from pyspark.sql import Window
-
         F = _functions()
         counts = {k: v for k, v in counts_by_kind.items() if v}
         examples = []
         if counts:
-            order = Window.partitionBy("_problem").orderBy("_file", "_line")
+            order = _window().partitionBy("_problem").orderBy("_file", "_line")
             first = (self.rows.where(F.col("_problem").isNotNull()).withColumn("n", F.row_number().over(order))
                      .where(F.col("n") <= EXAMPLES_PER_KIND).select("_problem", "_file", "_line", "_detail", "_text", "n"))
             examples = [MalformedExample(kind, file, line, detail or kind.replace("_", " "), text)
@@ -551,6 +560,7 @@ class SparkUnitTables:
 
     def place_units(self, designs: Sequence[Design]) -> None:
         F = _functions()
+        self.designs = list(designs)
         self.arms = [len(d.arms) for d in designs]
         exp = arm = None
         for i, d in enumerate(designs):
@@ -574,6 +584,36 @@ class SparkUnitTables:
         self.unit_rows = self._cache(units.select(
             "exp", "unit", "first_ts", "arm", "arm_low", "arm_high", "forced", "records",
             (F.col("arm_low") != F.col("arm_high")).alias("multi"), *kept))
+        self.cube = self._counts_cube()
+        self.replayed: dict[int, list[tuple[ReplayUnit, str | None]]] | None = None
+
+    def _counts_cube(self) -> list[tuple] | None:
+        """Tested units per experiment, arm, day and attribute values, when that table is small (else None).
+
+        The audit asks many small questions (per arm, per day, per segment,
+        with or without a segment); one Spark job answers them all when the
+        combinations are few, instead of one job per question.
+        """
+        F = _functions()
+        attributes = [self.names.attribute_column(a) for a in self.attributes]
+        tested = self.unit_rows.where(~F.col("multi") & ~F.col("forced"))
+        cube = tested.groupBy("exp", "arm", F.to_date("first_ts").alias("day"), *attributes).count()
+        rows = self._collect(cube.limit(CUBE_MAX_ROWS + 1))
+        return None if len(rows) > CUBE_MAX_ROWS else [tuple(row) for row in rows]
+
+    def _cube_rows(self, experiment: int, within: Segment | None, without: Segment | None) -> Iterator[tuple]:
+        """(arm, day, attribute values with NO_VALUE for nulls, units) of an experiment's cube rows in a segment."""
+        assert self.cube is not None
+        position = {name: i for i, name in enumerate(self.attributes)}
+        for exp, arm, day, *rest in self.cube:
+            if exp != experiment:
+                continue
+            values = tuple(NO_VALUE if v is None else v for v in rest[:-1])
+            if within and any(values[position[k]] != v for k, v in within.items()):
+                continue
+            if without and all(values[position[k]] == v for k, v in without.items()):
+                continue
+            yield arm, day, values, rest[-1]
 
     def _segment(self, segment: Segment) -> Any:
         F = _functions()
@@ -594,31 +634,51 @@ class SparkUnitTables:
     def arm_units(self, experiment: int, within: Segment | None = None,
                   without: Segment | None = None) -> ArmCounts:
         counts = [0] * self.arms[experiment]
+        if self.cube is not None:
+            for arm, _, _, units in self._cube_rows(experiment, within, without):
+                counts[arm] += units
+            return counts
         for arm, units in self._collect(self._tested(experiment, within, without).groupBy("arm").count()):
             counts[arm] = units
         return counts
 
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         F = _functions()
-        mine = self.unit_rows.where(F.col("exp") == int(experiment))
-        (multi, forced), = self._collect(mine.agg(F.count_if("multi"), F.count_if(F.col("forced") & ~F.col("multi"))))
-        rows = self._collect(mine.where("multi").select("unit", "arm_low", "arm_high").orderBy("unit").limit(int(examples)))
-        return UnitSummary(multi, forced, [tuple(row) for row in rows])
+        if not hasattr(self, "summaries"):
+            by_exp = self._collect(self.unit_rows.groupBy("exp").agg(
+                F.count_if("multi"), F.count_if(F.col("forced") & ~F.col("multi"))))
+            first = (self.unit_rows.where("multi")
+                     .withColumn("n", F.row_number().over(_window().partitionBy("exp").orderBy("unit")))
+                     .where(F.col("n") <= int(examples)).select("exp", "unit", "arm_low", "arm_high", "n"))
+            listed: dict[int, list[tuple[str, int, int]]] = {}
+            for exp, unit, low, high, _ in sorted(self._collect(first), key=lambda r: (r[0], r[4])):
+                listed.setdefault(exp, []).append((unit, low, high))
+            self.summaries = {exp: UnitSummary(multi, forced, listed.get(exp, [])) for exp, multi, forced in by_exp}
+        return self.summaries.get(experiment, UnitSummary(0, 0, []))
 
     def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
         F = _functions()
         by_day: dict[date, ArmCounts] = {}
-        grouped = self._tested(experiment, within).groupBy(F.to_date("first_ts").alias("day"), "arm").count()
-        for day, arm, units in sorted(self._collect(grouped)):
-            by_day.setdefault(day, [0] * self.arms[experiment])[arm] = units
+        if self.cube is not None:
+            rows = [(day, arm, units) for arm, day, _, units in self._cube_rows(experiment, within, None)]
+        else:
+            rows = self._collect(self._tested(experiment, within).groupBy(F.to_date("first_ts").alias("day"), "arm").count())
+        for day, arm, units in sorted(rows):
+            by_day.setdefault(day, [0] * self.arms[experiment])[arm] += units
         return by_day
 
     def segment_units(self, experiment: int, names: Sequence[str],
                       within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
         F = _functions()
+        grouped: dict[tuple[str, ...], ArmCounts] = {}
+        if self.cube is not None:
+            positions = [self.attributes.index(n) for n in names]
+            for arm, _, values, units in self._cube_rows(experiment, within, None):
+                key = tuple(values[p] for p in positions)
+                grouped.setdefault(key, [0] * self.arms[experiment])[arm] += units
+            return grouped
         keys = [F.coalesce(F.col(self.names.attribute_column(n)), F.lit(NO_VALUE)).alias(f"k{i}")
                 for i, n in enumerate(names)]
-        grouped: dict[tuple[str, ...], ArmCounts] = {}
         for row in self._collect(self._tested(experiment, within).groupBy(*keys, "arm").count()):
             grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
         return grouped
@@ -629,49 +689,57 @@ class SparkUnitTables:
             histogram.setdefault(records, [0] * self.arms[experiment])[arm] = units
         return histogram
 
-    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
-        F = _functions()
-        columns = [self.names.attribute_column(a) for a in self.attributes]
-        sample = self._tested(experiment).select("unit", "arm", F.to_date("first_ts").alias("day"), "config",
-                                                 "unit_type", *columns)
-        sample = sample.orderBy(F.md5("unit"), "unit")
-        if limit:
-            sample = sample.limit(int(limit))
-        return [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in self._collect(sample)]
-
     def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
                     fallback: Config) -> list[tuple[ReplayUnit, str | None]]:
-        """The replay sample with each unit's arm recomputed by the SDK in the executors (bucketing.batch)."""
+        """The replay sample with each unit's arm recomputed by the SDK in the executors (bucketing.batch).
+
+        The first call replays the samples of every experiment in one job (the
+        designs, configs and limit are the same for every call of an audit).
+        """
+        if self.replayed is None:
+            self.replayed = self._replay_all(limit, configs, fallback)
+        return self.replayed.get(experiment, [])
+
+    def _replay_all(self, limit: int, configs: Mapping[str, Config],
+                    fallback: Config) -> dict[int, list[tuple[ReplayUnit, str | None]]]:
         F = _functions()
-        columns = [self.names.attribute_column(a) for a in self.attributes]
-        sample = self._tested(experiment).select(
-            "unit", "arm", F.to_date("first_ts").alias("day"), "config", "unit_type",
-            *[F.col(c).alias(a) for c, a in zip(columns, self.attributes)],
-            F.md5("unit").alias("_order"))
-        sample = sample.orderBy("_order", "unit")
+        attributes = list(self.attributes)
+        columns = [F.col(self.names.attribute_column(a)).alias(a) for a in attributes]
+        order = _window().partitionBy("exp").orderBy(F.md5("unit"), "unit")
+        sample = (self.unit_rows.where(~F.col("multi") & ~F.col("forced"))
+                  .select("exp", "unit", "arm", F.to_date("first_ts").alias("day"), "config", "unit_type", *columns)
+                  .withColumn("_n", F.row_number().over(order)))
         if limit:
-            sample = sample.limit(int(limit))
+            sample = sample.where(F.col("_n") <= int(limit))
         version = F.when(F.col("config").isin(list(configs)), F.col("config")).otherwise(F.lit(fallback.version))
-        sample = self._cache(sample.withColumn("_version", version))
-        unit_type = design.unit_type or "unit"
-        computed = None
+        sample = sample.withColumn("_version", version)
+        base = ["exp", "unit", "arm", "day", "config", "unit_type", *attributes, "_n"]
+        parts = []
         for name, config in configs.items():
-            assigned = assign_frame(sample.where(F.col("_version") == name), config, unit_type=unit_type,
-                                    day_column="day", attributes=list(self.attributes))
-            if design.layer not in {layer.name for layer in config.layers if layer.unit == unit_type}:
-                continue
-            got = assigned.select("unit", "arm", "day", "config", "unit_type", *self.attributes, "_order", F.when(
-                F.col(f"`{layer_column(design.layer, 'experiment')}`") == design.experiment,
-                F.col(f"`{layer_column(design.layer, 'arm')}`")).alias("_computed"))
-            computed = got if computed is None else computed.unionByName(got)
-        if computed is None:
-            rows = self._collect(sample.select("unit", "arm", "day", "config", "unit_type", *self.attributes,
-                                               "_order", F.lit(None).cast("string").alias("_computed")))
-        else:
-            rows = self._collect(computed)
-        rows.sort(key=lambda r: (r["_order"], r["unit"]))
-        width = len(self.attributes)
-        return [(ReplayUnit(r[0], r[1], r[2], r[3], r[4], tuple(r[5:5 + width])), r[-1]) for r in rows]
+            for unit_type in sorted({d.unit_type or "unit" for d in self.designs}):
+                layers = {layer.name for layer in config.layers if layer.unit == unit_type}
+                mine = [(i, d) for i, d in enumerate(self.designs) if (d.unit_type or "unit") == unit_type
+                        and d.layer in layers]
+                if not mine:
+                    continue
+                rows = sample.where((F.col("_version") == name) & F.col("exp").isin([i for i, _ in mine]))
+                assigned = assign_frame(rows, config, unit_type=unit_type, day_column="day", attributes=attributes)
+                computed = F.lit(None).cast("string")
+                for i, d in reversed(mine):
+                    experiment = F.col(f"`{layer_column(d.layer, 'experiment')}`")
+                    arm = F.when(experiment == d.experiment, F.col(f"`{layer_column(d.layer, 'arm')}`"))
+                    computed = F.when(F.col("exp") == i, arm).otherwise(computed)
+                parts.append(assigned.select(*base, computed.alias("_computed")))
+        replayed: dict[int, list[tuple[ReplayUnit, str | None]]] = {}
+        if not parts:
+            return replayed
+        union = parts[0]
+        for more in parts[1:]:
+            union = union.unionByName(more)
+        width = len(attributes)
+        for r in sorted(self._collect(union), key=lambda r: (r[0], r[-2])):
+            replayed.setdefault(r[0], []).append((ReplayUnit(r[1], r[2], r[3], r[4], r[5], tuple(r[6:6 + width])), r[-1]))
+        return replayed
 
     def close(self) -> None:
         for frame in self.cached:
