@@ -46,8 +46,11 @@ def shown(value: object, limit: int = 60) -> str:
     return text if len(text) <= limit else text[:limit - 4] + "...'"
 
 
-def nearest(word: str, choices: Iterable[str]) -> str:
-    """" (did you mean 'x'?)" for the choice closest to a misspelt word, or "" when none is close."""
+def did_you_mean(word: str, choices: Iterable[str]) -> str:
+    """" (did you mean 'x'?)" for the choice closest to a misspelt word, or "" when none is close.
+
+    For messages about a name that matches nothing: a key, a status, an arm, a layer.
+    """
     close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
     return f" (did you mean {close[0]!r}?)" if close else ""
 

@@ -11,13 +11,13 @@ import json
 import re
 from datetime import date, datetime
 from pathlib import Path
-from typing import IO, Any, Iterable
+from typing import IO, Any, Iterable, NamedTuple
 
 from pydantic import ValidationError
 
 from ._config import Config, Document, Origin
-from ._errors import ConfigError, Problem, nearest, shown
-from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile
+from ._errors import ConfigError, Problem, did_you_mean, shown
+from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile, Holdout, Layer
 from ._rules import structural_problems
 from ._yaml import field_names, read_document, read_text, shape_of
 
@@ -49,14 +49,14 @@ def _schema_problems(doc: Document, exc: ValidationError) -> list[Problem]:
         message = error["msg"]
         found = error.get("input")
         if error["type"] == "extra_forbidden":
-            message = f"unknown key {shown(loc[-1])}" + nearest(str(loc[-1]), field_names(_FILE_SHAPE, loc[:-1]))
+            message = f"unknown key {shown(loc[-1])}" + did_you_mean(str(loc[-1]), field_names(_FILE_SHAPE, loc[:-1]))
         elif error["type"] == "missing":
             message = f"required key {loc[-1]!r} is missing"
         elif error["type"] == "string_pattern_mismatch":
             wanted = _PATTERN_WORDS.get(str(error.get("ctx", {}).get("pattern")), "a different form")
             message = f"{shown(found)} is not {wanted}"
         elif error["type"] == "literal_error" and isinstance(found, str):
-            message = f"{message}; found {shown(found)}" + nearest(found, _literal_choices(error))
+            message = f"{message}; found {shown(found)}" + did_you_mean(found, _literal_choices(error))
         elif error["type"] == "value_error":
             message = message.removeprefix("Value error, ")
         elif "input" in error and not isinstance(found, (dict, list)):
@@ -147,36 +147,78 @@ def parse_config(source: str | Path | Iterable[str | Path], *,
         return None, [Problem("file-unreadable", "error", str(sources[0]) if sources else "<config>", 1, 1, "",
                               "no .yaml or .yml files found")]
 
-    documents: list[tuple[Document, ConfigFile]] = []
+    documents: list[tuple[Document, _Parsed]] = []
     for p in paths:
         try:
             doc = _read_document(p, text)
         except ConfigError as exc:
             problems.extend(exc.problems)
             continue
+        problems.extend(doc.findings)
         if not isinstance(doc.data, dict):
             problems.append(doc.problem("schema", (), "a config file is a mapping with `format: 1` and `layers`"))
             continue
+        refused = {p.loc for p in doc.findings}
         try:
-            documents.append((doc, ConfigFile.model_validate(doc.data)))
+            parsed = ConfigFile.model_validate(doc.data)
         except ValidationError as exc:
-            problems.extend(_schema_problems(doc, exc))
+            problems.extend(p for p in _schema_problems(doc, exc) if p.loc not in refused)
+            parsed = None
+        if parsed is not None and not refused:
+            documents.append((doc, _Parsed(list(enumerate(parsed.layers)), list(enumerate(parsed.holdout)),
+                                           parsed.weekly_units)))
+        else:
+            documents.append((doc, _valid_parts(doc.data, {loc[:2] for loc in refused})))
     failed = bool(problems)
     config = _merge(documents, [str(p) for p in paths], problems)
     problems.extend(structural_problems(config))
     return (None if failed else config), problems
 
 
-def _merge(documents: list[tuple[Document, ConfigFile]], files: list[str], problems: list[Problem]) -> Config:
+class _Parsed(NamedTuple):
+    """What of one file validated: layers and holdouts with their index in the file, weekly_units.
+
+    `complete` is False for the valid parts of a file that failed validation.
+    """
+
+    layers: list[tuple[int, Layer]]
+    holdouts: list[tuple[int, Holdout]]
+    weekly_units: dict[str, int]
+    complete: bool = True
+
+
+def _valid_parts(data: dict[str, Any], refused: set[tuple]) -> _Parsed:
+    """The layers and holdouts of a file that failed which are valid on their own and hold no refused value.
+
+    The cross-field rules still run over them, so that one layer's typo does
+    not hide another layer's overlap; `refused` holds ("layers", i) and
+    ("holdout", i) of the parts with a value refused while reading.
+    """
+    def valid(key: str, model: type[Layer] | type[Holdout]) -> list:
+        items = data.get(key)
+        kept = []
+        for i, item in enumerate(items if isinstance(items, list) else []):
+            if (key, i) in refused:
+                continue
+            try:
+                kept.append((i, model.model_validate(item)))
+            except ValidationError:
+                pass  # reported already, by the validation of the whole file
+        return kept
+
+    return _Parsed(valid("layers", Layer), valid("holdout", Holdout), {}, complete=False)
+
+
+def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems: list[Problem]) -> Config:
     """One Config from the parsed files, with where each layer and holdout came from."""
     layers, layer_origins, holdouts, holdout_origins = [], [], [], []
     weekly: dict[str, int] = {}
     weekly_origins: dict[str, Origin] = {}
     for doc, parsed in documents:
-        for i, layer in enumerate(parsed.layers):
+        for i, layer in parsed.layers:
             layers.append(layer)
             layer_origins.append(Origin(doc, ("layers", i)))
-        for i, holdout in enumerate(parsed.holdout):
+        for i, holdout in parsed.holdouts:
             holdouts.append(holdout)
             holdout_origins.append(Origin(doc, ("holdout", i)))
         for unit_type, count in parsed.weekly_units.items():
@@ -189,7 +231,9 @@ def _merge(documents: list[tuple[Document, ConfigFile]], files: list[str], probl
         layers=tuple(layers),
         holdouts=tuple(holdouts),
         weekly_units=weekly,
-        version=config_version(doc.data for doc, _ in documents),
+        # Over complete files only: the version of a config that failed is never used, and a failed file's
+        # data need not have the shape the version's canonical form expects.
+        version=config_version(doc.data for doc, parsed in documents if parsed.complete),
         files=tuple(files),
         _layer_origins=tuple(layer_origins),
         _holdout_origins=tuple(holdout_origins),

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from audit.checks import meanings
-from tests.conftest import CHECK_FIXTURES
+from tests.conftest import CHECK_FIXTURES, EXAMPLE
 
 MARKER = re.compile(r"#\s*<-\s*([a-z0-9-]+(?:\s*,\s*[a-z0-9-]+)*)\s*$")
 UNREADABLE = {"file-unreadable", "yaml-syntax", "yaml-limits"}
@@ -69,7 +69,7 @@ def test_clean_fixture_has_no_findings_at_all(sortition):
 
 
 def test_example_configs_have_no_errors(sortition):
-    got = _run(sortition, str(Path(__file__).parent.parent / "configs_example"), "--today", "2026-11-15")
+    got = _run(sortition, str(EXAMPLE), "--today", "2026-11-15")
     assert got.exit_code == 0
     assert [f for f in json.loads(got.stdout)["findings"] if f["severity"] == "error"] == []
 

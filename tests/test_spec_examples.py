@@ -24,7 +24,7 @@ from pathlib import Path
 import mmh3
 import pytest
 
-from bucketing import Assigner, MemorySink, bucket_of, load_config
+from bucketing import Assigner, ConfigError, MemorySink, bucket_of, load_config
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = (ROOT / "docs" / "SPEC.md").read_text(encoding="utf-8")
@@ -217,6 +217,24 @@ def test_eligibility_examples(entry, value, holds):
     assert (got.layers["gate"].experiment == "gated") is (holds == "yes")
 
 
+# -- dates -----------------------------------------------------------------------------------------
+
+def test_dates_are_written_year_month_day():
+    """§2.8: only YYYY-MM-DD, on every Python (3.11's fromisoformat alone would take the other forms)."""
+    refused = re.search(r"other\s+ISO forms \((.*?)\) are refused", section(r"2\.8 "), re.DOTALL).group(1)
+    written = re.findall(r"`([^`]+)`", refused)
+    assert len(written) == 3
+    for text in written:
+        with pytest.raises(ConfigError, match="ISO date"):
+            load_config("dates.yaml", text=ONE_EXPERIMENT.replace("        eligible:\n          {entry}\n",
+                                                                  f"        start: {text}\n"))
+    plain, quoted = (load_config("dates.yaml", text=ONE_EXPERIMENT.replace("        eligible:\n          {entry}\n",
+                                                                           f"        start: {day}\n"))
+                     for day in ("2026-11-03", '"2026-11-03"'))
+    assert plain.version == quoted.version
+    assert plain.layers[0].experiments[0].start == date(2026, 11, 3)
+
+
 # -- config version id -----------------------------------------------------------------------------
 
 def test_config_version_example():
@@ -275,3 +293,12 @@ def test_exposure_record_fields_and_allow_list(example_dir):
         assert record["arm"] != "not-an-arm" and record["config"] == assigner.version
         # country and app_version are targeted by paywall's `eligible`; platform is named by the service.
         assert {k: record[k] for k in list(record)[8:]} == {"country": "NL", "app_version": "7.4.0", "platform": "ios"}
+
+
+def test_section_references_point_at_sections():
+    """Every '§N.N' of the specification names one of its own headings (the YAML standard's §10.3.2 aside)."""
+    outside = {"10.3.2"}
+    headings = set(re.findall(r"^#+ (\d+(?:\.\d+)*)\.? ", SPEC, re.MULTILINE))
+    referenced = set(re.findall(r"§(\d+(?:\.\d+)*)", SPEC)) - outside
+    assert len(headings) > 30 and referenced
+    assert not referenced - headings, f"docs/SPEC.md refers to sections it does not have: {sorted(referenced - headings)}"
