@@ -1,8 +1,8 @@
 """The SRM audit: exposure records in, per experiment a test of its split, where it breaks, and why.
 
 Layers inside, one direction: `_files`/`_scan`/`_sql`/`_malformed` read
-(DuckDB), `_engine` is the counting-engine interface and `_duckdb` its
-default implementation, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
+(DuckDB), `_engine` is the counting-engine interface, `_duckdb` its
+default implementation and `_spark` the Apache Spark one, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
 on small tables, `_results` holds the frozen results, `_audit` runs it all.
 Nothing here renders or chooses an exit code.
 """

@@ -45,7 +45,8 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
 
     - `source`: a path, glob or directory of logs (JSON Lines, CSV, TSV, Parquet; .gz), a list of them,
       or an in-memory table with the exposure record's columns (a pandas DataFrame, a pyarrow Table,
-      a DuckDB relation).
+      a DuckDB relation; with `engine="spark"`, a Spark DataFrame, a `SparkTable` of the catalog, or
+      s3a:// and hdfs:// URIs).
     - `config` (a `Config` or its path) gives each experiment's expected split, dates and the arm replay;
       `expect` gives one expected split instead: weights in arm-name order (`[50, 50]`) or by arm
       (`{"control": 50, "short": 50}`).

@@ -12,8 +12,9 @@ day and segment, the census, a few examples, and the replay sample, whose
 arms the SDK recomputes in the executors (bucketing.batch, a pandas UDF).
 
 The session: the active one if there is one, else `SPARK_REMOTE` (Spark
-Connect) when set, else local mode on every core; `conf` adds settings
-(`--spark-conf key=value`). Times are read in UTC, as the contract says.
+Connect) when set, else the one spark-submit configured, else local mode on
+every core; `conf` adds settings (`--spark-conf key=value`). Times are read
+in UTC, as the contract says.
 """
 
 from __future__ import annotations
@@ -66,7 +67,7 @@ def spark_session(conf: Mapping[str, str] | None = None) -> Any:
     builder = SparkSession.builder.appName("sortition-srm")
     if os.environ.get("SPARK_REMOTE"):
         builder = builder.remote(os.environ["SPARK_REMOTE"])
-    else:
+    elif not os.environ.get("PYSPARK_GATEWAY_PORT"):  # set by spark-submit, whose --master then holds
         os.environ.setdefault("PYSPARK_PYTHON", sys.executable)  # local workers import this interpreter's sortition
         builder = builder.master("local[*]").config("spark.ui.showConsoleProgress", "false")
     for key, value in (conf or {}).items():

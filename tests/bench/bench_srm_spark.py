@@ -61,7 +61,9 @@ started = time.perf_counter()
 out = {}
 if kind == "bare-distinct":
     import duckdb
-    duckdb.connect().execute(f"SELECT experiment, arm, count(DISTINCT unit) FROM read_parquet('{path}') GROUP BY ALL").fetchall()
+    con = duckdb.connect()
+    con.execute("SET enable_progress_bar = false")
+    con.execute(f"SELECT experiment, arm, count(DISTINCT unit) FROM read_parquet('{path}') GROUP BY ALL").fetchall()
 else:
     from audit import audit_logs
     engine = kind
@@ -94,7 +96,8 @@ print(json.dumps(out))
 def _measure(kind: str, path: Path) -> dict:
     done = subprocess.run([sys.executable, "-c", MEASURE, kind, str(path)], capture_output=True, text=True,
                           check=True, cwd=Path(__file__).resolve().parents[2])
-    return json.loads(done.stdout.strip().splitlines()[-1])
+    text = "\n" + done.stdout
+    return json.loads(text[text.rindex("\n{") + 1:])  # the last line; a progress bar may precede it
 
 
 def run() -> str:
