@@ -157,7 +157,7 @@ def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
     kept = [r for r in results if r.units or r.records or r.outside_window_records]
     kept.sort(key=lambda r: (not r.srm, r.p_value, r.layer, r.experiment))
     return AuditResult(plan.threshold, tuple(tables.sources), census.records, tuple(kept), malformed,
-                       tuple(census.unknown), tuple(plan.tested_terms()), tuple(plan.notes))
+                       tuple(census.unknown), tuple(plan.tested_terms()), tuple(plan.notes), tuple(tables.unreadable))
 
 
 def _sort_census(rows: Sequence[CensusRow], designs: Sequence[Design]) -> _Census:

@@ -5,6 +5,21 @@ One pass over the records reduces them to one row per unit and logged arm
 then); a second, small aggregate gives one row per unit and experiment
 (`unit_rows`). Every small table the audit asks for is a GROUP BY on that
 much smaller table.
+
+What any engine must do the same way (the Spark engine mirrors it):
+
+- Files: each regular file once, however it is reached (links, loops, named
+  twice); anything else (a device, a FIFO) is an error naming it. A file
+  that cannot be read at all (a gzip stream cut short, a CSV header that is
+  not UTF-8) is skipped and listed in `unreadable` with a note, and the
+  others are audited; when no file can be read, the read fails.
+- Lines: a line longer than `max_line_bytes` (1 MiB by default) is one
+  malformed record of kind `too_long`, located by file and line, and is
+  never held in memory whole; the files are read in blocks of bounded size.
+  A CSV line that leaves a quote open is one `unparseable` record: a record
+  is one line, so it never swallows the lines after it. A line that is not
+  UTF-8 is one `unparseable` record. Every malformed record counts in
+  `records` and in the census under its kind.
 """
 
 from __future__ import annotations
@@ -15,7 +30,7 @@ from typing import Any, Mapping, Sequence
 from . import _sql
 from ._designs import Design
 from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
-from ._files import resolve_files
+from ._files import MAX_LINE_BYTES, resolve_files
 from ._malformed import malformed_records
 from ._results import Malformed
 from ._scan import LogScan
@@ -27,20 +42,22 @@ VERSION_COLUMNS = ["config", "unit_type"]
 class DuckDBEngine:
     name = "duckdb"
 
-    def __init__(self, threads: int | None = None, memory_limit: str | None = None) -> None:
+    def __init__(self, threads: int | None = None, memory_limit: str | None = None,
+                 max_line_bytes: int = MAX_LINE_BYTES) -> None:
         self.threads = threads
         self.memory_limit = memory_limit
+        self.max_line_bytes = max_line_bytes
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
              keep_versions: bool, log_format: str | None = None,
              progress: Progress | None = None) -> DuckDBUnitTables:
         names = FieldNames.of(columns, attributes)
+        options: dict[str, Any] = dict(progress=progress, threads=self.threads, memory_limit=self.memory_limit,
+                                       max_line_bytes=self.max_line_bytes)
         if _is_paths(source):
-            scan = LogScan(resolve_files(source, log_format), names, progress=progress, threads=self.threads,
-                           memory_limit=self.memory_limit)
+            scan = LogScan(resolve_files(source, log_format), names, **options)
         else:
-            scan = LogScan([], names, table=source, progress=progress, threads=self.threads,
-                           memory_limit=self.memory_limit)
+            scan = LogScan([], names, table=source, **options)
         return DuckDBUnitTables(scan, keep_versions)
 
 
@@ -56,8 +73,10 @@ class DuckDBUnitTables:
         self.names = scan.names
         self.sources = scan.sources
         self.notes = scan.notes
+        self.unreadable = scan.unreadable
         self.attributes = scan.names.attributes
         self.layer_logged = "layer" in scan.present
+        self.rejected: list[tuple[str, str, int, str, str]] = []
         self.kept = (VERSION_COLUMNS if keep_versions else []) + [self.names.attribute_column(a)
                                                                   for a in self.attributes]
 
@@ -67,13 +86,17 @@ class DuckDBUnitTables:
     def census(self, designs: Sequence[Design]) -> list[CensusRow]:
         outside = _sql.outside_case(designs, self.layer_logged)
         self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text), "reading records")
-        return [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
+        self.rejected = self.scan.rejected()
+        rows = [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
+        for kind in dict.fromkeys(kind for kind, *_ in self.rejected):
+            rows.append(CensusRow(kind, None, None, None, False, sum(1 for r in self.rejected if r[0] == kind), 0, False))
+        return rows
 
     def epoch_notes(self) -> list[str]:
         return self.scan.epoch_notes()
 
     def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
-        return malformed_records(self.scan, counts_by_kind)
+        return malformed_records(self.scan, counts_by_kind, self.rejected)
 
     def place_units(self, designs: Sequence[Design]) -> None:
         self.scan.query(_sql.unit_rows(designs, self.layer_logged, self.kept), "counting units")

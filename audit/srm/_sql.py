@@ -111,11 +111,35 @@ def file_list(paths: Sequence[str]) -> str:
     return "[" + ", ".join(text(p) for p in paths) + "]"
 
 
+DUCKDB_MAX_LINE = 2_000_000  # DuckDB's own default limit of a line, in bytes
+DUCKDB_BUFFER = 32 * 1024 * 1024  # and of its read buffer
+
+
+def line_limits(max_line_bytes: int) -> str:
+    """Reader options that let every line up to the cap through (longer ones never reach a reader: see `_files`)."""
+    if max_line_bytes + 2 <= DUCKDB_MAX_LINE:
+        return ""
+    return f", max_line_size={max_line_bytes + 2}, buffer_size={max(DUCKDB_BUFFER, 2 * (max_line_bytes + 2))}"
+
+
 def raw_lines(paths: Sequence[str], options: str = "") -> str:
     """JSON Lines files as one text column `line`, however their lines end."""
     # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
     return (f"read_csv({file_list(paths)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
             f"header=false, auto_detect=false, strict_mode=false{', ' + options if options else ''})")
+
+
+def json_pointer(key: str) -> str:
+    """The JSON Pointer (RFC 6901) of a top-level key: no quoting rules but `~` and `/`, whatever else the key holds."""
+    return "/" + key.replace("~", "~0").replace("/", "~1")
+
+
+def file_label(column: str, originals: Mapping[str, str]) -> str:
+    """The log's own path for a reader's file name column (clean copies stand for the logs they were made from)."""
+    if not originals:
+        return column
+    return "CASE " + column + " " + " ".join(f"WHEN {text(copy)} THEN {text(log)}" for copy, log in originals.items()) \
+        + f" ELSE {column} END"
 
 
 def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str, str], names: FieldNames,
@@ -163,10 +187,14 @@ def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str
     return Select(f"SELECT {', '.join(select)} FROM {source}", "ts" not in native)
 
 
-def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Select:
-    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`."""
+def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str, originals: Mapping[str, str] = {},
+                 max_line_bytes: int = DUCKDB_MAX_LINE) -> Select:
+    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`.
+
+    `originals` maps a clean copy among `paths` to the log it stands for.
+    """
     fields = [names.columns[n] for n in RECORD_FIELDS] + list(names.attributes)
-    json_paths = "[" + ", ".join(text('$."' + n.replace('"', '\\"') + '"') for n in fields) + "]"
+    json_paths = "[" + ", ".join(text(json_pointer(n)) for n in fields) + "]"
     index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in names.attributes])}
     values = {k: f"v[{i}]" for k, i in index.items()}
     types = {k: f"t[{i}]" for k, i in index.items()}
@@ -179,7 +207,7 @@ def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Selec
     broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
               f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
     source = raw_lines(paths, f"filename=true, store_rejects=true, rejects_table='{rejects}_errors', "
-                              f"rejects_scan='{rejects}_scans'")
+                              f"rejects_scan='{rejects}_scans'{line_limits(max_line_bytes)}")
     parsed = f"""(
         SELECT filename, line, is_object,
                CASE WHEN is_object THEN json_extract_string(line, {json_paths}) END AS v,
@@ -190,7 +218,8 @@ def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Selec
             WHERE line IS NOT NULL AND trim(line) <> ''
         )
     )"""
-    extra = "filename AS _file, NULL::BIGINT AS _line, CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text"
+    extra = (f"{file_label('filename', originals)} AS _file, NULL::BIGINT AS _line, "
+             f"CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text")
     return normalised_select(parsed, values, kinds, names, broken=broken, extra=extra)
 
 
@@ -234,14 +263,15 @@ def typed_select(source: str, present: Mapping[str, str], names: FieldNames, ext
     return normalised_select(source, values, kinds, names, native, extra=extra)
 
 
-def csv_select(path: str, delimiter: str, head: Sequence[str], names: FieldNames, rejects: str) -> Select:
-    """One CSV file, every column read as text, with the delimiter and column names of its header."""
+def csv_select(path: str, delimiter: str, head: Sequence[str], names: FieldNames, rejects: str, label: str,
+               max_line_bytes: int = DUCKDB_MAX_LINE) -> Select:
+    """One CSV file, every column read as text, with the delimiter and column names of its header; `label` names it."""
     options = f"delim={text(delimiter)}, quote='\"', escape='\"', header=true, auto_detect=false"
     columns = "{" + ", ".join(f"{text(c)}: 'VARCHAR'" for c in head) + "}"
-    source = (f"read_csv({text(path)}, {options}, columns={columns}, filename=true, "
-              f"store_rejects=true, rejects_table='{rejects}_errors', rejects_scan='{rejects}_scans')")
+    source = (f"read_csv({text(path)}, {options}, columns={columns}, store_rejects=true, "
+              f"rejects_table='{rejects}_errors', rejects_scan='{rejects}_scans'{line_limits(max_line_bytes)})")
     fields = ", ".join(f"coalesce({ident(c)}, '')" for c in head)
-    extra = (f"filename AS _file, NULL::BIGINT AS _line, "
+    extra = (f"{text(label)} AS _file, NULL::BIGINT AS _line, "
              f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({text(delimiter)}, {fields}), 300) END AS _text")
     return typed_select(source, {c: "VARCHAR" for c in head}, names, extra)
 
@@ -380,7 +410,8 @@ def malformed_examples(per_kind: int = EXAMPLES_PER_KIND) -> str:
 def rejected_rows(rejects: str) -> str:
     """Rows a CSV reader rejected, one per file line (a row may have several errors; each scan logs it again)."""
     return f"""
-        SELECT CASE WHEN e.error_type = 'MISSING COLUMNS' THEN 'truncated' ELSE 'unparseable' END,
+        SELECT CASE e.error_type WHEN 'MISSING COLUMNS' THEN 'truncated' WHEN 'LINE SIZE OVER MAXIMUM' THEN 'too_long'
+                    ELSE 'unparseable' END,
                s.file_path, e.line, e.error_message, left(e.csv_line, 300)
         FROM {rejects}_errors e JOIN {rejects}_scans s USING (scan_id, file_id)
         QUALIFY row_number() OVER (PARTITION BY s.file_path, e.line ORDER BY e.scan_id, e.column_idx) = 1
