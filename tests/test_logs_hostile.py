@@ -216,3 +216,37 @@ def test_odd_attribute_keys_are_read_as_segments_and_by_auto(tmp_path):
         for key in ODD_KEYS:
             assert {s.by[key]: s.units for s in segments if list(s.by) == [key]} == {"v0": 30, "v1": 30, "v2": 30}
     assert set(automatic.segment_terms) == {(key,) for key in ODD_KEYS}
+
+
+# -- dates and many experiments -----------------------------------------------------------------------
+
+
+def test_implausible_dates_are_outside_the_window_with_a_note(tmp_path):
+    odd = [record(900, ts="9999-12-31T23:59:59Z"), record(901, ts="2999-06-01T00:00:00Z"),
+           record(902, ts="1970-01-01T00:00:00Z"), record(903, ts=str(10**19))]  # 10^19 ns after 1970: year 2286
+    path = write_jsonl(tmp_path / "dates.jsonl", [record(n) for n in range(40)] + odd)
+    result = audit([path])
+    experiment, = result.results
+    assert experiment.units == 40 and experiment.outside_window_records == 4
+    assert [d.day.isoformat() for d in experiment.days] == ["2026-11-04"]
+    note, = [n for n in result.notes if n.startswith("4 records dated outside 2000-01-01")]
+    assert "(from 1970-01-01 to 9999-12-31) are implausible" in note
+
+
+def test_days_are_the_days_with_units(tmp_path):
+    rows = [record(n, ts="2026-01-02T10:00:00Z") for n in range(20)] + \
+        [record(n, ts="2026-12-01T10:00:00Z") for n in range(20, 50)]
+    result = audit([write_jsonl(tmp_path / "two-days.jsonl", rows)])
+    days = result.results[0].days
+    assert [(d.day.isoformat(), sum(d.arm_units)) for d in days] == [("2026-01-02", 20), ("2026-12-01", 30)]
+    assert days[-1].cumulative_p == result.results[0].p_value
+
+
+def test_many_experiments_of_an_expected_split_are_each_counted(tmp_path):
+    rows = [record(n, experiment=f"exp-{n % 700:03d}", arm=("left", "right")[(n // 700) % 2]) for n in range(2800)]
+    rows += [record(n, experiment="exp-odd", arm="left", unit="twice") for n in range(2)]
+    result = audit([write_jsonl(tmp_path / "many.jsonl", rows)])
+    assert len(result.results) == 701
+    by_name = {r.experiment: r for r in result.results}
+    assert all([a.units for a in by_name[f"exp-{k:03d}"].arms] == [2, 2] for k in range(700))
+    assert by_name["exp-odd"].units == 1 and by_name["exp-odd"].duplicate_records == 1

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from typing import TYPE_CHECKING, Iterator
 
 from bucketing import BUCKETS, Problem
@@ -12,6 +13,16 @@ if TYPE_CHECKING:  # `audit.srm` loads SciPy: the config commands start without 
     from ..srm import AuditResult, ExperimentResult
 
 SEGMENT_ROWS = 8
+
+
+# Characters that act on a terminal instead of showing: C0 and C1 controls (but the line end) and the
+# bidirectional overrides that reorder what is shown. Log records carry names that nobody checked.
+_UNSHOWABLE = re.compile("[\x00-\x09\x0b-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+
+
+def printable(text: str) -> str:
+    """The text with every control character written as an escape (`\\x1b`, `\\u202e`), so a terminal shows it."""
+    return _UNSHOWABLE.sub(lambda m: f"\\x{ord(m[0]):02x}" if ord(m[0]) < 0x100 else f"\\u{ord(m[0]):04x}", text)
 
 
 def p_text(value: float) -> str:
@@ -92,7 +103,7 @@ def srm_text(result: AuditResult) -> str:
             lines.append(f"    {where}: {e.kind.replace('_', ' ')}: {e.detail}")
         lines.append("")
     lines += [f"note: {n}" for n in result.notes]
-    return "\n".join(lines).rstrip() + "\n"
+    return printable("\n".join(lines).rstrip()) + "\n"
 
 
 def finding_line(finding: Problem) -> str:

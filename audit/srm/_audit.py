@@ -134,9 +134,9 @@ class _Census:
 
 
 def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
-    plan.notes += tables.notes
     designs = designs_from_config(plan.config) if plan.config is not None and plan.expect is None else None
     rows = tables.census(designs or [])
+    plan.notes += tables.notes  # after the census, which notes what it found in the records (implausible dates)
     if designs is None:
         assert plan.expect is not None
         designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows
@@ -274,7 +274,7 @@ def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, re
     """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
     units = tables.replay_sample(index, plan.replay_units)
     fallback = plan.config or next(iter(plan.replay_configs.values()))
-    summary, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
+    summary, units, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
     plan.notes += notes
     replayed = []
     for segment in segments:

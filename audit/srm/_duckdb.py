@@ -24,7 +24,8 @@ What any engine must do the same way (the Spark engine mirrors it):
 
 from __future__ import annotations
 
-from datetime import date
+from collections import defaultdict
+from datetime import date, datetime, timezone
 from typing import Any, Mapping, Sequence
 
 from . import _sql
@@ -83,9 +84,20 @@ class DuckDBUnitTables:
     def other_columns(self) -> list[str]:
         return self.scan.other_columns()
 
+    def _load_designs(self, designs: Sequence[Design]) -> None:
+        for statement, parameters in _sql.design_tables(designs):
+            self.scan.con.execute(statement, parameters)
+
     def census(self, designs: Sequence[Design]) -> list[CensusRow]:
-        outside = _sql.outside_case(designs, self.layer_logged)
-        self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text), "reading records")
+        self._load_designs(designs)
+        plausible = _sql.plausible_days(datetime.now(timezone.utc).date())
+        windows = any(d.start or d.end for d in designs)
+        self.scan.query(_sql.unit_arms(self.kept, self.scan.times_as_text, windows, plausible), "reading records")
+        (implausible, earliest, latest), = self.scan.fetch(_sql.IMPLAUSIBLE)
+        if implausible:
+            self.notes.append(f"{implausible:,} records dated outside {plausible[0]} to {plausible[1]} "
+                              f"(from {earliest:%Y-%m-%d} to {latest:%Y-%m-%d}) are implausible: counted as outside "
+                              f"their experiment's dates")
         self.rejected = self.scan.rejected()
         rows = [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
         for kind in dict.fromkeys(kind for kind, *_ in self.rejected):
@@ -99,37 +111,55 @@ class DuckDBUnitTables:
         return malformed_records(self.scan, counts_by_kind, self.rejected)
 
     def place_units(self, designs: Sequence[Design]) -> None:
-        self.scan.query(_sql.unit_rows(designs, self.layer_logged, self.kept), "counting units")
+        self._load_designs(designs)
+        self.scan.query(_sql.unit_rows(self.kept), "counting units")
         self.arms = [len(d.arms) for d in designs]
+        self._arm_counts: dict[int, ArmCounts] | None = None
+        self._summaries: dict[int, UnitSummary] | None = None
+        self._days: dict[int, dict[date, ArmCounts]] | None = None
 
     def _where(self, within: Segment | None, without: Segment | None) -> str:
         where = _sql.segment_where(within or {}, self.names)
         return f"{where} AND NOT ({_sql.segment_where(without, self.names)})" if without else where
 
+    # Whole-audit questions (no segment) are answered for every experiment in one query, the first time one is
+    # asked: with 100,000 experiments, one query per experiment would cost more than the records.
+
     def arm_units(self, experiment: int, within: Segment | None = None,
                   without: Segment | None = None) -> ArmCounts:
-        counts = [0] * self.arms[experiment]
-        for arm, units in self.scan.query(f"""
-                SELECT arm, count(*) FROM unit_rows WHERE {_sql.tested_units(experiment, self._where(within, without))}
-                GROUP BY arm""", "counting arms"):
-            counts[arm] = units
-        return counts
+        if within or without:
+            counts = [0] * self.arms[experiment]
+            for arm, units in self.scan.query(f"""
+                    SELECT arm, count(*) FROM unit_rows
+                    WHERE {_sql.tested_units(experiment, self._where(within, without))} GROUP BY arm""", "counting arms"):
+                counts[arm] = units
+            return counts
+        if self._arm_counts is None:
+            self._arm_counts = {}
+            for exp, arm, units in self.scan.query(_sql.ARM_UNITS, "counting arms"):
+                self._arm_counts.setdefault(exp, [0] * self.arms[exp])[arm] = units
+        return list(self._arm_counts.get(experiment, [0] * self.arms[experiment]))
 
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
-        (multi, forced), = self.scan.query(f"""
-            SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi)
-            FROM unit_rows WHERE exp = {int(experiment)}""")
-        rows = self.scan.query(f"""
-            SELECT unit, arm_low, arm_high FROM unit_rows WHERE exp = {int(experiment)} AND multi
-            ORDER BY unit LIMIT {int(examples)}""")
-        return UnitSummary(multi, forced, [tuple(row) for row in rows])
+        if self._summaries is None:
+            self._summaries = {exp: UnitSummary(multi, forced, [])
+                               for exp, multi, forced in self.scan.query(_sql.LEFT_OUT_UNITS)}
+            for exp, unit, low, high in self.scan.query(_sql.multi_arm_examples(examples)):
+                self._summaries[exp].multi_arm_examples.append((unit, low, high))
+        return self._summaries.get(experiment, UnitSummary(0, 0, []))
 
     def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
-        by_day: dict[date, ArmCounts] = {}
-        for day, arm, units in self.scan.query(f"""
-                SELECT CAST(first_ts AS DATE), arm, count(*) FROM unit_rows
-                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL ORDER BY 1"""):
-            by_day.setdefault(day, [0] * self.arms[experiment])[arm] = units
+        if within:
+            return self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(experiment, self._where(within, None))),
+                                                "counting days"))[experiment]
+        if self._days is None:
+            self._days = self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(None)), "counting days"))
+        return self._days.get(experiment, {})
+
+    def _by_day(self, rows: list[tuple]) -> defaultdict[int, dict[date, ArmCounts]]:
+        by_day: defaultdict[int, dict[date, ArmCounts]] = defaultdict(dict)
+        for exp, day, arm, units in rows:
+            by_day[exp].setdefault(day, [0] * self.arms[exp])[arm] = units
         return by_day
 
     def segment_units(self, experiment: int, names: Sequence[str],

@@ -16,21 +16,36 @@ EXAMPLES = 5
 
 
 def replay(units: Sequence[ReplayUnit], design: Design, attributes: Sequence[str], configs: Mapping[str, Config],
-           fallback: Config) -> tuple[ReplaySummary, list[ReplayUnit], list[str]]:
-    """The replay's summary, the units logged in another arm than the config gives, and notes.
+           fallback: Config) -> tuple[ReplaySummary, list[ReplayUnit], list[ReplayUnit], list[str]]:
+    """The replay's summary, the units replayed, those logged in another arm than the config gives, and notes.
 
-    A unit whose record names no version among `configs` is replayed against `fallback`.
+    A unit whose record names no version among `configs` is replayed against `fallback`. A unit whose record
+    lacks an attribute the experiment targets on is not replayed (a note says how many).
     """
+    targeted = {version: _targeted(config, design) for version, config in [*configs.items(), (None, fallback)]}
     groups: dict[tuple[str, date], list[ReplayUnit]] = defaultdict(list)
     unmatched = 0
+    unknowable: dict[str, int] = defaultdict(int)  # a targeted attribute the logs lack -> units not replayed for it
     for unit in units:
         known = unit.config in configs
         unmatched += not known
-        groups[(unit.config if known and unit.config else fallback.version, unit.day)].append(unit)
+        version = unit.config if known and unit.config else fallback.version
+        # A unit logged in an arm passed the targeting then; without the attribute in the logs, its arm cannot be
+        # recomputed, and counting it as a mismatch would blame the config version for what the logs left out.
+        lacking = [a for a in targeted[version if version in configs else None]
+                   if a not in attributes or unit.attributes[attributes.index(a)] is None]
+        if lacking:
+            unknowable[lacking[0]] += 1
+            continue
+        groups[(version, unit.day)].append(unit)
     notes = []
     if unmatched and len(configs) > 1:
         notes.append(f"{design.experiment}: {unmatched} replayed units carry a config version not among the "
                      f"versions given; replayed against {fallback.version}")
+    notes += [f"{design.experiment}: {count:,} units were not replayed: the config targets attribute {name!r}, "
+              f"which their records do not carry (add it to the logged attributes, or map its column)"
+              for name, count in unknowable.items()]
+    units = [u for members in groups.values() for u in members]
     mismatched: list[tuple[ReplayUnit, str | None]] = []
     for (version, day), members in groups.items():
         assigner = Assigner(configs.get(version, fallback))
@@ -44,7 +59,13 @@ def replay(units: Sequence[ReplayUnit], design: Design, attributes: Sequence[str
                 mismatched.append((member, computed))
     examples = tuple({"unit": m.unit, "logged": design.arms[m.arm], "computed": computed, "config": m.config}
                      for m, computed in mismatched[:EXAMPLES])
-    return ReplaySummary(len(units), len(mismatched), examples), [m for m, _ in mismatched], notes
+    return ReplaySummary(len(units), len(mismatched), examples), units, [m for m, _ in mismatched], notes
+
+
+def _targeted(config: Config, design: Design) -> list[str]:
+    """The attributes the experiment's eligibility rules read in this config version."""
+    return [key for layer in config.layers if layer.name == design.layer
+            for exp in layer.experiments if exp.name == design.experiment for key in exp.eligible]
 
 
 def segment_replay(segment: SegmentResult, units: Sequence[ReplayUnit], mismatched: Sequence[ReplayUnit],

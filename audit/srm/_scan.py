@@ -82,6 +82,7 @@ class LogScan:
         self.con.execute(_sql.NORMALISE)
         self.sources = [self.original(f.path) for f in self.files]
         selects = [self._table_select(table)] if table is not None else self._file_selects()
+        self._check_mapping()
         self.times_as_text = any(s.times_as_text for s in selects)
         self.con.execute("CREATE TEMP VIEW exposure_rows AS " + "\nUNION ALL BY NAME\n".join(s.sql for s in selects))
 
@@ -172,18 +173,29 @@ class LogScan:
         self.sources = [label]
         return _sql.table_select(TABLE_VIEW, present, self.names, label)
 
-    def other_columns(self, sample_lines: int = 10_000) -> list[str]:
-        """Columns of the logs that are not fields of the exposure record: the candidate segments.
-
-        CSV and Parquet files and tables say theirs in the header; JSON Lines
-        files are sampled (the keys of their first `sample_lines` records).
-        """
+    def log_columns(self, sample_lines: int = 10_000) -> list[str]:
+        """Every column of the logs: CSV and Parquet files and tables say theirs in the header; JSON Lines files
+        are sampled (the keys of their first `sample_lines` records)."""
         found = dict(self._columns_seen)
         if self._jsonl_paths:
             keys = self.fetch(_sql.jsonl_keys(self._jsonl_paths, sample_lines))
             found.update(dict.fromkeys(sorted(key for (key,) in keys)))
-        taken = set(self.names.columns.values()) | set(RECORD_FIELDS) | READER_COLUMNS
-        return [name for name in found if name not in taken]
+        return [name for name in found if name not in READER_COLUMNS]
+
+    def other_columns(self) -> list[str]:
+        """Columns of the logs that are not fields of the exposure record, nor mapped: the candidate segments."""
+        taken = set(self.names.columns.values()) | set(self.names.mapped.values()) | set(RECORD_FIELDS)
+        return [name for name in self.log_columns() if name not in taken]
+
+    def _check_mapping(self) -> None:
+        """A mapping to a column the logs do not have is an error that lists the columns they have."""
+        if not self.names.mapped:
+            return
+        columns = self.log_columns()
+        for name, column in self.names.mapped.items():
+            if column not in columns:
+                raise LogError(f"{name}={column}: the logs have no column {column!r} "
+                               f"(columns: {', '.join(columns) or 'none'})")
 
     # -- columns -----------------------------------------------------------------------------------
 
