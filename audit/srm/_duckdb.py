@@ -43,22 +43,18 @@ VERSION_COLUMNS = ["config", "unit_type"]
 class DuckDBEngine:
     name = "duckdb"
 
-    def __init__(self, threads: int | None = None, memory_limit: str | None = None,
-                 max_line_bytes: int = MAX_LINE_BYTES) -> None:
-        self.threads = threads
-        self.memory_limit = memory_limit
+    def __init__(self, max_line_bytes: int = MAX_LINE_BYTES) -> None:
         self.max_line_bytes = max_line_bytes
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
              keep_versions: bool, log_format: str | None = None,
              progress: Progress | None = None) -> DuckDBUnitTables:
         names = FieldNames.of(columns, attributes)
-        options: dict[str, Any] = dict(progress=progress, threads=self.threads, memory_limit=self.memory_limit,
-                                       max_line_bytes=self.max_line_bytes)
         if _is_paths(source):
-            scan = LogScan(resolve_files(source, log_format), names, **options)
+            scan = LogScan(resolve_files(source, log_format), names, progress=progress,
+                           max_line_bytes=self.max_line_bytes)
         else:
-            scan = LogScan([], names, table=source, **options)
+            scan = LogScan([], names, table=source, progress=progress, max_line_bytes=self.max_line_bytes)
         return DuckDBUnitTables(scan, keep_versions)
 
 
