@@ -10,6 +10,7 @@ import pytest
 
 from audit import LogError, audit_logs
 from audit.srm import engine_named, resolve_files
+from tests.test_logs_formats import REPLAY_CONFIG
 from tests.invented_logs import counts_of, invented_records, python_counts, write_csv_with_lines, write_jsonl
 
 SMALL_CAP = 4096  # the line cap the tests lower, so that an over-long line stays small
@@ -250,3 +251,79 @@ def test_many_experiments_of_an_expected_split_are_each_counted(tmp_path):
     by_name = {r.experiment: r for r in result.results}
     assert all([a.units for a in by_name[f"exp-{k:03d}"].arms] == [2, 2] for k in range(700))
     assert by_name["exp-odd"].units == 1 and by_name["exp-odd"].duplicate_records == 1
+
+
+# -- names with terminal escapes, column mappings, targeting the logs do not carry -------------------
+
+ESCAPES = "\x1b]0;owned\x07\x1b[2J\u202e"  # sets the terminal title, clears the screen, reverses the text
+
+
+def test_the_text_report_escapes_control_characters_and_the_html_keeps_escaping(tmp_path, sortition):
+    rows = [dict(record(n, experiment="exp" + ESCAPES + "<script>x</script>", arm=("right" + ESCAPES, "left")[n % 3 > 0]),
+                 country=("BB", "AA" + ESCAPES)[n % 2]) for n in range(900)]  # a 1:2 split, so the arms are listed
+    path = write_jsonl(tmp_path / "escapes.jsonl", rows)
+    text = sortition("srm", path, "--expect", "50,50", "--by", "country", "--quiet")
+    assert text.exit_code == 1, text.output
+    assert not any(ch in text.stdout for ch in "\x1b\x07\u202e")
+    assert "exp\\x1b]0;owned\\x07\\x1b[2J\\u202e<script>" in text.stdout and "country=AA\\x1b]0;owned" in text.stdout
+    html = sortition("srm", path, "--expect", "50,50", "--by", "country", "--quiet", "--format", "html",
+                     "--out", tmp_path / "report.html")
+    assert html.exit_code == 1
+    page = (tmp_path / "report.html").read_text()
+    assert "<script>x</script>" not in page and "&lt;script&gt;x&lt;/script&gt;" in page
+
+
+def test_column_maps_attributes_too(tmp_path):
+    rows = [dict(record(n), appVer=("7.1", "7.2")[n % 3 == 0]) for n in range(60)]
+    path = write_jsonl(tmp_path / "theirs.jsonl", rows)
+    result = audit([path], segments=["app_version"], columns={"app_version": "appVer"})
+    assert {s.by["app_version"]: s.units for s in result.results[0].segments} == {"7.2": 20, "7.1": 40}
+
+
+@pytest.mark.parametrize("writer", ["jsonl", "csv"])
+def test_a_mapping_to_a_column_the_logs_lack_lists_theirs(tmp_path, sortition, writer):
+    records = invented_records(seed=33, units=30)
+    path = (write_jsonl(tmp_path / "log.jsonl", records) if writer == "jsonl"
+            else write_csv_with_lines(tmp_path / "log.csv", records, {}))
+    for mapping in (["--column", "bogus=app_ver"], ["--column", "layer=tier"], ["--column", "country=nation"]):
+        got = sortition("srm", path, "--expect", "50,50", "--by", "country", "--quiet", *mapping)
+        assert got.exit_code == 2, got.output
+        column = mapping[1].split("=")[1]
+        assert got.stderr.strip().splitlines() == [
+            f"sortition: {mapping[1]}: the logs have no column {column!r} (columns: "
+            f"ts, unit, unit_type, layer, experiment, arm, config, forced, country)".replace(
+                "(columns: ts, unit, unit_type, layer, experiment, arm, config, forced, country)",
+                "(columns: " + ", ".join(sorted(records[0]) if writer == "jsonl" else list(records[0])) + ")")]
+
+
+# the invented replay config of the format tests, its experiment targeting a key with a backslash
+TARGETED_CONFIG = REPLAY_CONFIG.replace("        salt: ea-1\n", '        salt: ea-1\n        eligible:\n          "app\\\\ver": ">=7.2"\n')
+
+
+def test_a_replay_of_targeting_the_logs_do_not_carry_says_so(tmp_path):
+    from bucketing import Assigner, load_config
+
+    (tmp_path / "config.yaml").write_text(TARGETED_CONFIG)
+    config = load_config(tmp_path / "config.yaml")
+    key, = config.layers[0].experiments[0].eligible
+    assert key == "app\\ver"  # a backslash in the key, read through the JSON path as well
+    assigner = Assigner(config)
+    rows = []
+    for n in range(300):
+        arm = assigner.assign({"learner": f"U-{n}"}, {key: "7.3"}).layers["layer-a"].arm
+        rows.append(dict(record(n, arm=arm, unit_type="learner"), **({key: "7.3"} if n < 200 else {})))
+    path = write_jsonl(tmp_path / "log.jsonl", rows)
+    result = audit_logs([str(path)], config=config)
+    exp, = result.results
+    assert (exp.replay_checked, exp.replay_mismatched) == (200, 0)
+    assert not any(c.kind == "arm_mismatch" for c in exp.causes)
+    assert any(n.startswith("exp-a: 100 units were not replayed: the config targets attribute 'app\\\\ver'")
+               for n in result.notes)
+
+
+def test_a_units_file_with_a_line_that_is_not_utf8_names_the_file_and_line(tmp_path, sortition, example_dir):
+    units = tmp_path / "units.txt"
+    units.write_bytes(b"L-1\nL-\xff2\nL-3\n")
+    got = sortition("assign", example_dir, "--units", units, "--unit-type", "learner")
+    assert got.exit_code == 2
+    assert got.stderr.strip().splitlines() == [f"sortition: {units}:2: not UTF-8 text (byte 3 of the line)"]
