@@ -171,11 +171,15 @@ def parse_config(source: str | Path | Iterable[str | Path], *,
 
 
 class _Parsed(NamedTuple):
-    """What of one file validated: layers and holdouts with their index in the file, weekly_units."""
+    """What of one file validated: layers and holdouts with their index in the file, weekly_units.
+
+    `complete` is False for the valid parts of a file that failed validation.
+    """
 
     layers: list[tuple[int, Layer]]
     holdouts: list[tuple[int, Holdout]]
     weekly_units: dict[str, int]
+    complete: bool = True
 
 
 def _valid_parts(data: dict[str, Any]) -> _Parsed:
@@ -193,7 +197,7 @@ def _valid_parts(data: dict[str, Any]) -> _Parsed:
                 pass  # reported already, by the validation of the whole file
         return kept
 
-    return _Parsed(valid(Layer, data.get("layers")), valid(Holdout, data.get("holdout")), {})
+    return _Parsed(valid(Layer, data.get("layers")), valid(Holdout, data.get("holdout")), {}, complete=False)
 
 
 def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems: list[Problem]) -> Config:
@@ -218,7 +222,9 @@ def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems
         layers=tuple(layers),
         holdouts=tuple(holdouts),
         weekly_units=weekly,
-        version=config_version(doc.data for doc, _ in documents),
+        # Over complete files only: the version of a config that failed is never used, and a failed file's
+        # data need not have the shape the version's canonical form expects.
+        version=config_version(doc.data for doc, parsed in documents if parsed.complete),
         files=tuple(files),
         _layer_origins=tuple(layer_origins),
         _holdout_origins=tuple(holdout_origins),
