@@ -20,6 +20,12 @@ What any engine must do the same way (the Spark engine mirrors it):
   is one line, so it never swallows the lines after it. A line that is not
   UTF-8 is one `unparseable` record. Every malformed record counts in
   `records` and in the census under its kind.
+- Dates: a record dated before 2000-01-01 or more than 366 days after the
+  day of the audit (`_sql.plausible_days`) is outside its experiment's
+  dates, whatever they are, and a note says how many and their range.
+  Per-day tables hold only days with units.
+- Columns: `FieldNames.mapped` maps record fields and attributes to log
+  columns; a mapped column the logs lack is an error listing theirs.
 """
 
 from __future__ import annotations
