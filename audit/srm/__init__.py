@@ -1,8 +1,8 @@
 """The SRM audit: exposure records in, per experiment a test of its split, where it breaks, and why.
 
 Layers inside, one direction: `_files`/`_scan`/`_sql`/`_malformed` read
-(DuckDB), `_engine` is the counting-engine interface and `_duckdb` its
-default implementation, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
+(DuckDB), `_engine` is the counting-engine interface, `_duckdb` its
+default implementation and `_spark` the Apache Spark one, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
 on small tables, `_results` holds the frozen results, `_audit` runs it all.
 Nothing here renders or chooses an exit code.
 """
@@ -12,6 +12,7 @@ from ._designs import Design, Expectation, designs_from_config, designs_from_exp
 from ._diagnosis import CAUSES, diagnose
 from ._engine import ENGINES, CensusRow, CountingEngine, ReplayUnit, UnitSummary, UnitTables, engine_named
 from ._files import LOG_FORMATS, LogFile, resolve_files
+from ._spark import SparkEngine, SparkTable, spark_session
 from ._results import (
     ArmResult, AuditResult, Cause, DayResult, ExperimentResult, Localisation, Malformed, MalformedExample,
     SegmentResult, UnknownRecords,
@@ -29,6 +30,7 @@ __all__ = [
     "Design", "Expectation", "designs_from_config", "designs_from_expectation",
     "CAUSES", "diagnose",
     "CountingEngine", "UnitTables", "CensusRow", "UnitSummary", "ReplayUnit", "ENGINES", "engine_named",
+    "SparkEngine", "SparkTable", "spark_session",
     "LogFile", "LOG_FORMATS", "resolve_files",
     "DEFAULT_THRESHOLD", "FitResult", "ArmGap", "SegmentShift", "chi_square_fit", "chi_square_p_value", "arm_gaps",
     "holm_adjust", "leave_out", "cumulative_fits", "first_crossing", "share_interval", "proportion_test",

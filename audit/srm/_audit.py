@@ -23,7 +23,7 @@ from . import _stats
 from ._designs import Design, Expectation, designs_from_config, designs_from_logs
 from ._diagnosis import diagnose
 from ._engine import CensusRow, CountingEngine, Progress, UnitTables, engine_named
-from ._replay import replay, segment_replay
+from ._replay import replay, replayable, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
 from ._segments import day_results, localise, test_segments, without_worst
 
@@ -45,7 +45,8 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
 
     - `source`: a path, glob or directory of logs (JSON Lines, CSV, TSV, Parquet; .gz), a list of them,
       or an in-memory table with the exposure record's columns (a pandas DataFrame, a pyarrow Table,
-      a DuckDB relation).
+      a DuckDB relation; with `engine="spark"`, a Spark DataFrame, a `SparkTable` of the catalog, or
+      s3a:// and hdfs:// URIs).
     - `config` (a `Config` or its path) gives each experiment's expected split, dates and the arm replay;
       `expect` gives one expected split instead: weights in arm-name order (`[50, 50]`) or by arm
       (`{"control": 50, "short": 50}`).
@@ -274,10 +275,12 @@ def _segment_counts(tables: UnitTables, plan: _Plan, index: int) -> list[tuple[t
 def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, result: ExperimentResult,
                  segments: list[SegmentResult]) -> ExperimentResult:
     """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
-    units = tables.replay_sample(index, plan.replay_units)
     fallback = plan.config or next(iter(plan.replay_configs.values()))
-    summary, units, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
-    plan.notes += notes
+    arms = tables.replay_arms(index, plan.replay_units, design, plan.replay_configs, fallback)
+    arms, lacking = replayable(arms, design, tables.attributes, plan.replay_configs, fallback)
+    summary, mismatched, notes = replay(arms, design, plan.replay_configs, fallback)
+    units = [unit for unit, _ in arms]
+    plan.notes += lacking + notes
     replayed = []
     for segment in segments:
         checked, off = segment_replay(segment, units, mismatched, tables.attributes)

@@ -34,11 +34,14 @@ from collections import defaultdict
 from datetime import date, datetime, timezone
 from typing import Any, Mapping, Sequence
 
+from bucketing import Config
+
 from . import _sql
 from ._designs import Design
 from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
 from ._files import MAX_LINE_BYTES, resolve_files
 from ._malformed import malformed_records
+from ._replay import sdk_arms
 from ._results import Malformed
 from ._scan import LogScan
 from ._sql import FieldNames
@@ -174,14 +177,16 @@ class DuckDBUnitTables:
             grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
         return grouped
 
-    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
+    def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
+                    fallback: Config) -> list[tuple[ReplayUnit, str | None]]:
         columns = "".join(f", {self.names.attribute_column(a)}" for a in self.attributes)
-        # The sample is the units with the smallest hash of their id: the same on every run, whatever the threads.
-        sample = f"ORDER BY hash(unit), unit LIMIT {int(limit)}" if limit else ""
+        # The sample is the units with the smallest MD5 of their id: the same on every run and on every engine.
         rows = self.scan.query(f"""
             SELECT unit, arm, CAST(first_ts AS DATE), config, unit_type{columns}
-            FROM unit_rows WHERE {_sql.tested_units(experiment)} {sample}""", "replaying")
-        return [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in rows]
+            FROM unit_rows WHERE {_sql.tested_units(experiment)} ORDER BY md5(unit), unit
+            {f"LIMIT {int(limit)}" if limit else ""}""", "replaying")
+        units = [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in rows]
+        return list(zip(units, sdk_arms(units, design, self.attributes, configs, fallback)))
 
     def close(self) -> None:
         self.scan.close()
