@@ -67,6 +67,15 @@ def write_csv(path: Path, records: list[dict], gz: bool = False, names: dict | N
     return path
 
 
+def write_csv_with_lines(path: Path, records: list[dict], inserted: dict[int, str]) -> Path:
+    """A CSV of the records with raw lines inserted, each at its line number (from 1, the header being line 1)."""
+    text = write_csv(path, records).read_text().splitlines()
+    for number, line in sorted(inserted.items()):
+        text.insert(number - 1, line)
+    path.write_text("\n".join(text) + "\n")
+    return path
+
+
 def write_parquet(path: Path, records: list[dict]) -> Path:
     source = write_jsonl(path.with_suffix(".tmp.jsonl"), records)
     duckdb.sql(f"COPY (SELECT * FROM read_json('{source}')) TO '{path}' (FORMAT parquet)")

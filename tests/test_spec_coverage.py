@@ -112,12 +112,17 @@ def edit(path: Path, old: str, new: str) -> None:
 
 @pytest.fixture(scope="module")
 def changed_configs(tmp_path_factory) -> tuple[Path, Path]:
-    """configs_example/ and an edited copy: a weight moved, an experiment added, one removed, a warning waived."""
+    """configs_example/ and an edited copy: a rollout ramped, an approved ramp-down, an experiment added, one
+    removed, a warning waived."""
     root = tmp_path_factory.mktemp("configs")
     new = root / "new"
     shutil.copytree(EXAMPLE, new)
     edit(new / "audio.yaml", "weight: 20", "weight: 30")
     edit(new / "audio.yaml", "weight: 80", "weight: 70")
+    edit(new / "audio.yaml", "        owner: platform-team\n", "        owner: platform-team\n        rollout: new-engine\n")
+    edit(new / "lessons.yaml", 'buckets: ["0-3999"]', 'buckets: ["0-2999"]')
+    edit(new / "lessons.yaml", "        salt: shorter-lessons-1\n", "        salt: shorter-lessons-1\n"
+         "        reassign_ok: {why: invented ramp-down to 30 % of the layer, moves_up_to: 30}\n")
     edit(new / "paywall.yaml", "      - name: price-display", "      - name: price-display-2")
     edit(new / "paywall.yaml", "        owner: growth-team\n        arms:\n          - name: control\n"
          "            weight: 50\n            params: {trial_days: 7}\n          - name: monthly-first",
@@ -210,6 +215,8 @@ def test_diff_fields_are_specified(changed_configs):
     report = sortition("diff", old, new, "--format", "json")
     presences = {e["presence"] for e in report["experiments"]}
     assert presences == {"both", "added", "removed"} and any(e["moves"] for e in report["experiments"])
+    verdicts = {e["verdict"] for e in report["experiments"]}
+    assert {"accepted", "ramp"} <= verdicts, verdicts  # so that `approval` and `rollout` are filled in
     assert_described("diff", [report])
 
 

@@ -8,7 +8,7 @@ import json
 import sys
 from enum import Enum
 from pathlib import Path
-from typing import Iterator, Optional
+from typing import IO, Iterator, Optional
 
 import typer
 
@@ -24,17 +24,27 @@ class AssignFormat(str, Enum):
     csv = "csv"
 
 
+def _text_lines(stream: IO[bytes], name: str) -> Iterator[str]:
+    """The stream's lines as text; a line that is not UTF-8 is a one-line error naming the file and the line."""
+    for number, raw in enumerate(stream, start=1):
+        try:
+            yield raw.decode("utf-8-sig" if number == 1 else "utf-8")
+        except UnicodeDecodeError as exc:
+            fail(f"{name}:{number}: not UTF-8 text (byte {exc.start + 1} of the line)")
+
+
 def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
     """Units from a file (or '-' for stdin): one id per line, or CSV with a `unit` column and attributes."""
-    stream = sys.stdin if source == "-" else open(source, encoding="utf-8-sig", newline="")
+    stream = sys.stdin.buffer if source == "-" else open(source, "rb")
     name = "<stdin>" if source == "-" else source
     with stream:
-        first = stream.readline()
+        lines = _text_lines(stream, name)
+        first = next(lines, "")
         header = next(csv.reader([first]), [])
         if len(header) > 1 or header == ["unit"]:
             if "unit" not in header:
                 fail(f"{name}:1: a CSV of units needs a 'unit' column; found columns {header}")
-            reader = csv.DictReader(stream, fieldnames=header)
+            reader = csv.DictReader(lines, fieldnames=header)
             for line_no, row in enumerate(reader, start=2):
                 if None in row or any(v is None for v in row.values()):
                     found = sum(v is not None for k, v in row.items() if k is not None) + len(row.get(None) or [])
@@ -42,7 +52,7 @@ def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
                 unit = row.pop("unit")
                 yield unit, {k: v for k, v in row.items() if v != ""}
         else:
-            for line in [first, *stream]:
+            for line in [first, *lines]:
                 unit = line.rstrip("\r\n")
                 if unit:
                     yield unit, {}

@@ -46,7 +46,14 @@ def diff_exit(diff: ConfigDiff) -> int:
 
 
 def srm_exit(result: AuditResult, strict: bool) -> int:
-    """1 on any mismatch (or, with --strict, any malformed record, named on stderr), else 0."""
+    """1 on any mismatch (or, with --strict, any malformed record, named on stderr), else 0.
+
+    With --strict, a log file that could not be read at all is unreadable input: 2.
+    """
+    if strict and result.unreadable_files:
+        file, why = result.unreadable_files[0]
+        typer.echo(f"sortition: {file}: cannot be read ({why}); --strict stops on an unreadable file", err=True)
+        return UNREADABLE
     if strict and result.malformed.total:
         first = result.malformed.examples[0] if result.malformed.examples else None
         where = f"{first.file}:{first.line}: " if first and first.line else (f"{first.file}: " if first else "")

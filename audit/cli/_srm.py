@@ -83,7 +83,9 @@ def register(app: typer.Typer) -> None:
                                                             "test combinations, e.g. country,platform+app_version; "
                                                             "'auto' tests every other column of the logs."),
         column: list[str] = typer.Option([], "--column", help="FIELD=LOG_COLUMN when the logs use other names, "
-                                                              "e.g. --column unit=user_id --column arm=variant."),
+                                         "for fields of the record and for segment or eligibility attributes, "
+                                         "e.g. --column unit=user_id --column arm=variant --column app_version=appVer; "
+                                         "a column the logs do not have is an error that lists theirs."),
         expect: Optional[str] = typer.Option(None, "--expect", help="Expected split when there is no config "
                                              "(or to override it): 50,50 (arms in name order) or control=50,short=50."),
         threshold: Optional[float] = typer.Option(None, "--threshold", help="p-value below which a split is a "

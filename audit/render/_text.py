@@ -110,7 +110,7 @@ def srm_text(result: AuditResult) -> str:
             lines.append(f"    {where}: {e.kind.replace('_', ' ')}: {e.detail}")
         lines.append("")
     lines += [f"note: {n}" for n in result.notes]
-    return "\n".join(lines).rstrip() + "\n"
+    return terminal_safe("\n".join(lines).rstrip()) + "\n"
 
 
 def finding_line(finding: Problem) -> str:

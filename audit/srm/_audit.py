@@ -23,7 +23,7 @@ from . import _stats
 from ._designs import Design, Expectation, designs_from_config, designs_from_logs
 from ._diagnosis import diagnose
 from ._engine import CensusRow, CountingEngine, Progress, UnitTables, engine_named
-from ._replay import replay, segment_replay
+from ._replay import replay, replayable, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
 from ._segments import day_results, localise, test_segments, without_worst
 
@@ -135,9 +135,9 @@ class _Census:
 
 
 def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
-    plan.notes += tables.notes
     designs = designs_from_config(plan.config) if plan.config is not None and plan.expect is None else None
     rows = tables.census(designs or [])
+    plan.notes += tables.notes  # after the census, which notes what it found in the records (implausible dates)
     if designs is None:
         assert plan.expect is not None
         designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows
@@ -158,7 +158,7 @@ def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
     kept = [r for r in results if r.units or r.records or r.outside_window_records]
     kept.sort(key=lambda r: (not r.srm, r.p_value, r.layer, r.experiment))
     return AuditResult(plan.threshold, tuple(tables.sources), census.records, tuple(kept), malformed,
-                       tuple(census.unknown), tuple(plan.tested_terms()), tuple(plan.notes))
+                       tuple(census.unknown), tuple(plan.tested_terms()), tuple(plan.notes), tuple(tables.unreadable))
 
 
 def _sort_census(rows: Sequence[CensusRow], designs: Sequence[Design]) -> _Census:
@@ -277,9 +277,10 @@ def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, re
     """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
     fallback = plan.config or next(iter(plan.replay_configs.values()))
     arms = tables.replay_arms(index, plan.replay_units, design, plan.replay_configs, fallback)
+    arms, lacking = replayable(arms, design, tables.attributes, plan.replay_configs, fallback)
     summary, mismatched, notes = replay(arms, design, plan.replay_configs, fallback)
     units = [unit for unit, _ in arms]
-    plan.notes += notes
+    plan.notes += lacking + notes
     replayed = []
     for segment in segments:
         checked, off = segment_replay(segment, units, mismatched, tables.attributes)

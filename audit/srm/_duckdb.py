@@ -5,11 +5,33 @@ One pass over the records reduces them to one row per unit and logged arm
 then); a second, small aggregate gives one row per unit and experiment
 (`unit_rows`). Every small table the audit asks for is a GROUP BY on that
 much smaller table.
+
+What any engine must do the same way (the Spark engine mirrors it):
+
+- Files: each regular file once, however it is reached (links, loops, named
+  twice); anything else (a device, a FIFO) is an error naming it. A file
+  that cannot be read at all (a gzip stream cut short, a CSV header that is
+  not UTF-8) is skipped and listed in `unreadable` with a note, and the
+  others are audited; when no file can be read, the read fails.
+- Lines: a line longer than `max_line_bytes` (1 MiB by default) is one
+  malformed record of kind `too_long`, located by file and line, and is
+  never held in memory whole; the files are read in blocks of bounded size.
+  A CSV line that leaves a quote open is one `unparseable` record: a record
+  is one line, so it never swallows the lines after it. A line that is not
+  UTF-8 is one `unparseable` record. Every malformed record counts in
+  `records` and in the census under its kind.
+- Dates: a record dated before 2000-01-01 or more than 366 days after the
+  day of the audit (`_sql.plausible_days`) is outside its experiment's
+  dates, whatever they are, and a note says how many and their range.
+  Per-day tables hold only days with units.
+- Columns: `FieldNames.mapped` maps record fields and attributes to log
+  columns; a mapped column the logs lack is an error listing theirs.
 """
 
 from __future__ import annotations
 
-from datetime import date
+from collections import defaultdict
+from datetime import date, datetime, timezone
 from typing import Any, Mapping, Sequence
 
 from bucketing import Config
@@ -17,7 +39,7 @@ from bucketing import Config
 from . import _sql
 from ._designs import Design
 from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
-from ._files import resolve_files
+from ._files import MAX_LINE_BYTES, resolve_files
 from ._malformed import malformed_records
 from ._replay import sdk_arms
 from ._results import Malformed
@@ -30,14 +52,18 @@ VERSION_COLUMNS = ["config", "unit_type"]
 class DuckDBEngine:
     name = "duckdb"
 
+    def __init__(self, max_line_bytes: int = MAX_LINE_BYTES) -> None:
+        self.max_line_bytes = max_line_bytes
+
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
              keep_versions: bool, log_format: str | None = None,
              progress: Progress | None = None) -> DuckDBUnitTables:
         names = FieldNames.of(columns, attributes)
         if _is_paths(source):
-            scan = LogScan(resolve_files(source, log_format), names, progress=progress)
+            scan = LogScan(resolve_files(source, log_format), names, progress=progress,
+                           max_line_bytes=self.max_line_bytes)
         else:
-            scan = LogScan([], names, table=source, progress=progress)
+            scan = LogScan([], names, table=source, progress=progress, max_line_bytes=self.max_line_bytes)
         return DuckDBUnitTables(scan, keep_versions)
 
 
@@ -53,57 +79,92 @@ class DuckDBUnitTables:
         self.names = scan.names
         self.sources = scan.sources
         self.notes = scan.notes
+        self.unreadable = scan.unreadable
         self.attributes = scan.names.attributes
         self.layer_logged = "layer" in scan.present
+        self.rejected: list[tuple[str, str, int, str, str]] = []
         self.kept = (VERSION_COLUMNS if keep_versions else []) + [self.names.attribute_column(a)
                                                                   for a in self.attributes]
 
     def other_columns(self) -> list[str]:
         return self.scan.other_columns()
 
+    def _load_designs(self, designs: Sequence[Design]) -> None:
+        for statement, parameters in _sql.design_tables(designs):
+            self.scan.con.execute(statement, parameters)
+
     def census(self, designs: Sequence[Design]) -> list[CensusRow]:
-        outside = _sql.outside_case(designs, self.layer_logged)
-        self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text), "reading records")
-        return [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
+        self._load_designs(designs)
+        plausible = _sql.plausible_days(datetime.now(timezone.utc).date())
+        windows = any(d.start or d.end for d in designs)
+        self.scan.query(_sql.unit_arms(self.kept, self.scan.times_as_text, windows, plausible), "reading records")
+        (implausible, earliest, latest), = self.scan.fetch(_sql.IMPLAUSIBLE)
+        if implausible:
+            self.notes.append(f"{implausible:,} records dated outside {plausible[0]} to {plausible[1]} "
+                              f"(from {earliest:%Y-%m-%d} to {latest:%Y-%m-%d}) are implausible: counted as outside "
+                              f"their experiment's dates")
+        self.rejected = self.scan.rejected()
+        rows = [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
+        for kind in dict.fromkeys(kind for kind, *_ in self.rejected):
+            rows.append(CensusRow(kind, None, None, None, False, sum(1 for r in self.rejected if r[0] == kind), 0, False))
+        return rows
 
     def epoch_notes(self) -> list[str]:
         return self.scan.epoch_notes()
 
     def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
-        return malformed_records(self.scan, counts_by_kind)
+        return malformed_records(self.scan, counts_by_kind, self.rejected)
 
     def place_units(self, designs: Sequence[Design]) -> None:
-        self.scan.query(_sql.unit_rows(designs, self.layer_logged, self.kept), "counting units")
+        self._load_designs(designs)
+        self.scan.query(_sql.unit_rows(self.kept), "counting units")
         self.arms = [len(d.arms) for d in designs]
+        self._arm_counts: dict[int, ArmCounts] | None = None
+        self._summaries: dict[int, UnitSummary] | None = None
+        self._days: dict[int, dict[date, ArmCounts]] | None = None
 
     def _where(self, within: Segment | None, without: Segment | None) -> str:
         where = _sql.segment_where(within or {}, self.names)
         return f"{where} AND NOT ({_sql.segment_where(without, self.names)})" if without else where
 
+    # Whole-audit questions (no segment) are answered for every experiment in one query, the first time one is
+    # asked: with 100,000 experiments, one query per experiment would cost more than the records.
+
     def arm_units(self, experiment: int, within: Segment | None = None,
                   without: Segment | None = None) -> ArmCounts:
-        counts = [0] * self.arms[experiment]
-        for arm, units in self.scan.query(f"""
-                SELECT arm, count(*) FROM unit_rows WHERE {_sql.tested_units(experiment, self._where(within, without))}
-                GROUP BY arm""", "counting arms"):
-            counts[arm] = units
-        return counts
+        if within or without:
+            counts = [0] * self.arms[experiment]
+            for arm, units in self.scan.query(f"""
+                    SELECT arm, count(*) FROM unit_rows
+                    WHERE {_sql.tested_units(experiment, self._where(within, without))} GROUP BY arm""", "counting arms"):
+                counts[arm] = units
+            return counts
+        if self._arm_counts is None:
+            self._arm_counts = {}
+            for exp, arm, units in self.scan.query(_sql.ARM_UNITS, "counting arms"):
+                self._arm_counts.setdefault(exp, [0] * self.arms[exp])[arm] = units
+        return list(self._arm_counts.get(experiment, [0] * self.arms[experiment]))
 
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
-        (multi, forced), = self.scan.query(f"""
-            SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi)
-            FROM unit_rows WHERE exp = {int(experiment)}""")
-        rows = self.scan.query(f"""
-            SELECT unit, arm_low, arm_high FROM unit_rows WHERE exp = {int(experiment)} AND multi
-            ORDER BY unit LIMIT {int(examples)}""")
-        return UnitSummary(multi, forced, [tuple(row) for row in rows])
+        if self._summaries is None:
+            self._summaries = {exp: UnitSummary(multi, forced, [])
+                               for exp, multi, forced in self.scan.query(_sql.LEFT_OUT_UNITS)}
+            for exp, unit, low, high in self.scan.query(_sql.multi_arm_examples(examples)):
+                self._summaries[exp].multi_arm_examples.append((unit, low, high))
+        return self._summaries.get(experiment, UnitSummary(0, 0, []))
 
     def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
-        by_day: dict[date, ArmCounts] = {}
-        for day, arm, units in self.scan.query(f"""
-                SELECT CAST(first_ts AS DATE), arm, count(*) FROM unit_rows
-                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL ORDER BY 1"""):
-            by_day.setdefault(day, [0] * self.arms[experiment])[arm] = units
+        if within:
+            return self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(experiment, self._where(within, None))),
+                                                "counting days"))[experiment]
+        if self._days is None:
+            self._days = self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(None)), "counting days"))
+        return self._days.get(experiment, {})
+
+    def _by_day(self, rows: list[tuple]) -> defaultdict[int, dict[date, ArmCounts]]:
+        by_day: defaultdict[int, dict[date, ArmCounts]] = defaultdict(dict)
+        for exp, day, arm, units in rows:
+            by_day[exp].setdefault(day, [0] * self.arms[exp])[arm] = units
         return by_day
 
     def segment_units(self, experiment: int, names: Sequence[str],

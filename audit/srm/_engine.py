@@ -63,6 +63,7 @@ class UnitTables(Protocol):
 
     sources: list[str]  # the files read (or a label for an in-memory table)
     notes: list[str]  # how the sources were read, where the reading had to guess or skip
+    unreadable: list[tuple[str, str]]  # (file, why) of the files skipped because they cannot be read at all
     attributes: tuple[str, ...]  # the unit attributes kept, as asked
     layer_logged: bool  # whether some source has the `layer` field
 
@@ -132,12 +133,12 @@ class CountingEngine(Protocol):
 ENGINES = {"duckdb": "audit.srm._duckdb:DuckDBEngine", "spark": "audit.srm._spark:SparkEngine"}
 
 
-def engine_named(name: str | CountingEngine) -> CountingEngine:
-    """The engine of that name (or the engine itself when one is given)."""
+def engine_named(name: str | CountingEngine, **options: Any) -> CountingEngine:
+    """The engine of that name, made with `options` (or the engine itself when one is given)."""
     if not isinstance(name, str):
         return name
     if name not in ENGINES:
         raise AuditError(f"unknown counting engine {name!r}; the engines are {', '.join(ENGINES)}")
     module, _, cls = ENGINES[name].partition(":")
-    engine: CountingEngine = getattr(importlib.import_module(module), cls)()
+    engine: CountingEngine = getattr(importlib.import_module(module), cls)(**options)
     return engine

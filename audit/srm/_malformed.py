@@ -1,7 +1,9 @@
 """Reporting malformed records: counts by kind, and a few examples located by file and line.
 
-The view `exposure_rows` keeps every record, good or bad; this module counts
-the bad ones, adds the rows the CSV reader rejected, and finds the line
+The view `exposure_rows` keeps every record a reader was given, good or
+bad; the census counts the bad ones, the lines a reader rejected and the
+lines no reader was given (too long, or a CSV quote left open: see
+`_files`). This module picks a few examples of each kind and finds the line
 numbers of JSON Lines and CSV examples by reading each file only as far as
 its last example.
 """
@@ -11,27 +13,26 @@ from __future__ import annotations
 import csv
 import gzip
 import io
-from typing import Any, Callable, Generator, Mapping
+from typing import Any, Callable, Generator, Mapping, Sequence
 
 from . import _sql
 from ._files import LogFile
 from ._results import Malformed, MalformedExample
 from ._scan import LogScan
 
-PROBLEM_KINDS = ("unparseable", "truncated", "missing_field", "wrong_type")
+PROBLEM_KINDS = ("unparseable", "truncated", "too_long", "missing_field", "wrong_type")
 
 
-def malformed_records(scan: LogScan, counts_by_kind: Mapping[str, int]) -> Malformed:
-    """Malformed records: the kinds counted in `exposure_rows`, plus rows the CSV reader rejected."""
+def malformed_records(scan: LogScan, counts_by_kind: Mapping[str, int],
+                      rejected: Sequence[tuple[str, str, int, str, str]]) -> Malformed:
+    """Malformed records, counted by kind by the census; examples from `exposure_rows` and the `rejected` lines."""
     counts = {k: v for k, v in counts_by_kind.items() if v}
     examples = [MalformedExample(kind, file, line, detail or kind.replace("_", " "), text)
                 for kind, file, line, detail, text in scan.fetch(_sql.malformed_examples())] if counts else []
-    for rejects in scan.rejects:
-        for kind, file, line, detail, text in scan.fetch(_sql.rejected_rows(rejects)):
-            counts[kind] = counts.get(kind, 0) + 1
-            if sum(1 for ex in examples if ex.kind == kind) < _sql.EXAMPLES_PER_KIND:
-                examples.append(MalformedExample(kind, file, line, detail, text))
-    located = _with_lines(examples, {f.path: f for f in scan.files}, scan.delimiters)
+    for kind, file, line, detail, text in sorted(rejected, key=lambda row: (row[1], row[2])):
+        if sum(1 for ex in examples if ex.kind == kind) < _sql.EXAMPLES_PER_KIND:
+            examples.append(MalformedExample(kind, file, line, detail, text))
+    located = _with_lines(examples, {scan.original(f.path): f for f in scan.files}, scan.delimiters)
     located.sort(key=lambda ex: (PROBLEM_KINDS.index(ex.kind), ex.file, ex.line or 0))
     return Malformed(counts, tuple(located))
 
@@ -71,8 +72,11 @@ def _numbered_records(log: LogFile, delimiter: str | None) -> Generator[tuple[in
                 yield number, line.rstrip("\r\n")
             return
         rows = csv.reader(stream, delimiter=delimiter)
-        next(rows, None)
-        start = rows.line_num + 1
-        for row in rows:
-            yield start, delimiter.join(row)
+        try:
+            next(rows, None)
             start = rows.line_num + 1
+            for row in rows:
+                yield start, delimiter.join(row)
+                start = rows.line_num + 1
+        except csv.Error:  # a field over the csv module's size limit: the examples after it keep no line
+            return

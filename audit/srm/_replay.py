@@ -48,6 +48,35 @@ def replay(replayed: Sequence[tuple[ReplayUnit, str | None]], design: Design, co
     return ReplaySummary(len(replayed), len(mismatched), examples), [m for m, _ in mismatched], notes
 
 
+def replayable(replayed: Sequence[tuple[ReplayUnit, str | None]], design: Design, attributes: Sequence[str],
+               configs: Mapping[str, Config], fallback: Config) -> tuple[list[tuple[ReplayUnit, str | None]], list[str]]:
+    """The units whose records carry every attribute the experiment targets on, and a note per attribute lacking.
+
+    A unit logged in an arm passed the targeting then; without the attribute in the logs its arm cannot be
+    recomputed, and counting it as a mismatch would blame the config version for what the logs left out.
+    """
+    targeted = {version: _targeted(config, design) for version, config in configs.items()}
+    kept = []
+    lacking: dict[str, int] = defaultdict(int)  # a targeted attribute the logs lack -> units not replayed for it
+    for unit, computed in replayed:
+        needed = targeted.get(unit.config or "") if unit.config in configs else _targeted(fallback, design)
+        missing = [a for a in needed or () if a not in attributes or unit.attributes[attributes.index(a)] is None]
+        if missing:
+            lacking[missing[0]] += 1
+        else:
+            kept.append((unit, computed))
+    notes = [f"{design.experiment}: {count:,} units were not replayed: the config targets attribute {name!r}, "
+             f"which their records do not carry (add it to the logged attributes, or map its column)"
+             for name, count in lacking.items()]
+    return kept, notes
+
+
+def _targeted(config: Config, design: Design) -> list[str]:
+    """The attributes the experiment's eligibility rules read in this config version."""
+    return [key for layer in config.layers if layer.name == design.layer
+            for exp in layer.experiments if exp.name == design.experiment for key in exp.eligible]
+
+
 def segment_replay(segment: SegmentResult, units: Sequence[ReplayUnit], mismatched: Sequence[ReplayUnit],
                    attributes: Sequence[str]) -> tuple[int, int]:
     """(checked, mismatched) replayed units inside a segment."""

@@ -276,6 +276,7 @@ class AuditResult:
     unknown: tuple[UnknownRecords, ...] = ()
     segment_terms: tuple[tuple[str, ...], ...] = ()
     notes: tuple[str, ...] = ()
+    unreadable_files: tuple[tuple[str, str], ...] = ()  # (file, why) of the files skipped because they cannot be read
 
     @property
     def any_srm(self) -> bool:
@@ -292,5 +293,6 @@ class AuditResult:
             "results": [r.to_dict() for r in self.results],
             "malformed": self.malformed.to_dict(),
             "unknown": [u.to_dict() for u in self.unknown],
+            "unreadable_files": [{"file": file, "reason": why} for file, why in self.unreadable_files],
             "notes": list(self.notes),
         }

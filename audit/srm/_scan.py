@@ -1,17 +1,20 @@
 """The DuckDB side of reading: one connection with the `exposure_rows` view over log files or an in-memory table.
 
 `LogScan` opens the sources (files found by `_files`, or a pandas
-DataFrame, a pyarrow Table or a DuckDB relation), asks `_sql` for the
-normalised SELECT of each, and runs queries with progress. `notes` says
-how files were read where the reading had to guess or skip.
+DataFrame, a pyarrow Table or a DuckDB relation), surveys each text log
+first (`_files.survey_file`: unreadable files are skipped, lines no reader
+should meet are blanked in a clean copy and counted here), asks `_sql` for
+the normalised SELECT of each, and runs queries with progress. `notes`
+says how files were read where the reading had to guess or skip.
 """
 
 from __future__ import annotations
 
 import csv
-import gzip
 import re
+import tempfile
 import threading
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
@@ -21,13 +24,14 @@ from bucketing import RECORD_FIELDS
 
 from .._errors import LogError, MissingFieldError
 from . import _sql
-from ._files import LogFile
+from ._files import MAX_LINE_BYTES, BadLine, LogFile, clean_copy, survey_file
 from ._sql import FieldNames, Select
 
 CSV_DELIMITERS = (",", ";", "\t", "|")
 EPOCH_UNITS = ("seconds", "milliseconds", "microseconds", "nanoseconds")  # index = _ts_epoch in `exposure_rows`
 READER_COLUMNS = frozenset({"filename", "file_row_number"})  # added by DuckDB's readers, not by the logs
 TABLE_VIEW = "input_records"
+SURVEY_THREADS = 4
 
 Progress = Callable[[str, float], None]
 
@@ -36,21 +40,33 @@ class LogScan:
     """An open DuckDB connection with the `exposure_rows` view over the given logs."""
 
     def __init__(self, files: Sequence[LogFile], names: FieldNames, *, table: Any = None,
-                 progress: Progress | None = None) -> None:
+                 progress: Progress | None = None, max_line_bytes: int = MAX_LINE_BYTES) -> None:
         if not files and table is None:
             raise LogError("no log files given")
         self.names = names
         self.progress = progress
+        self.max_line_bytes = max_line_bytes
         self.notes: list[str] = []
         self.present: set[str] = set()  # fields of the record that some source has
         self.times_as_text = False  # True when some source's ts is text or a number, so epoch times may occur
         self.rejects: list[str] = []  # DuckDB reject tables of the CSV and JSON Lines readers
+        self.unreadable: list[tuple[str, str]] = []  # (file, why) of the files skipped because they cannot be read
+        self.bad_lines: list[tuple[str, BadLine]] = []  # (file, line) of the lines no reader was given
+        self.originals: dict[str, str] = {}  # path of a clean copy -> the log it was made from
+        self._scratch: tempfile.TemporaryDirectory[str] | None = None
         self._header_lines: dict[str, str] = {}  # CSV path -> its first line
-        self.delimiters: dict[str, str] = {}  # CSV path -> the delimiter its header line shows
+        self.delimiters: dict[str, str] = {}  # CSV log -> the delimiter its header line shows
         self._columns_seen: dict[str, None] = {}  # every column of the CSV and Parquet files and tables, in order
         self._jsonl_paths: list[str] = []
-        self.files = [f for f in files if self._has_records(f)]
+        self.files = self._readable(files) if files else []
         if table is None and not self.files:
+            self.close()
+            if self.bad_lines:
+                file, bad = self.bad_lines[0]
+                raise LogError(f"{file}:{bad.line}: no usable exposure record ({len(self.bad_lines)} malformed; "
+                               f"first: {bad.detail})")
+            if self.unreadable:
+                raise LogError("no log file could be read: " + "; ".join(f"{path}: {why}" for path, why in self.unreadable))
             raise LogError(f"no exposure records: every log file is empty ({', '.join(f.path for f in files[:3])}"
                            f"{', …' if len(files) > 3 else ''})")
         self.con = duckdb.connect()
@@ -59,10 +75,56 @@ class LogScan:
         self.con.execute("SET enable_progress_bar_print = false")  # ... but never printed on stdout
         self.con.execute("SET preserve_insertion_order = false")  # every query that needs an order says so
         self.con.execute(_sql.NORMALISE)
-        self.sources = [f.path for f in self.files]
+        self.sources = [self.original(f.path) for f in self.files]
         selects = [self._table_select(table)] if table is not None else self._file_selects()
+        self._check_mapping()
         self.times_as_text = any(s.times_as_text for s in selects)
         self.con.execute("CREATE TEMP VIEW exposure_rows AS " + "\nUNION ALL BY NAME\n".join(s.sql for s in selects))
+
+    def original(self, path: str) -> str:
+        """The log's own path for a path read (a clean copy stands for the log it was made from)."""
+        return self.originals.get(path, path)
+
+    def _readable(self, files: Sequence[LogFile]) -> list[LogFile]:
+        """The files to give the readers: text logs surveyed first (in parallel: gzip and reads release the GIL).
+
+        A file that cannot be read is skipped with a note; an empty one too;
+        one with lines no reader should meet is replaced by a clean copy.
+        """
+        with ThreadPoolExecutor(max_workers=min(SURVEY_THREADS, len(files))) as pool:
+            surveys = list(pool.map(lambda f: None if f.format == "parquet" else survey_file(f, self.max_line_bytes),
+                                    files))
+        kept = []
+        for log, survey in zip(files, surveys):
+            if survey is None:
+                if Path(log.path).stat().st_size == 0:
+                    self.notes.append(f"{log.path}: empty; skipped")
+                else:
+                    kept.append(log)
+                continue
+            if survey.unreadable:
+                self.unreadable.append((log.path, survey.unreadable))
+                self.notes.append(f"{log.path}: cannot be read ({survey.unreadable}); skipped, the other files are audited")
+                continue
+            self.bad_lines += [(log.path, bad) for bad in survey.bad_lines]
+            if not survey.records:
+                if not survey.bad_lines:
+                    self.notes.append(f"{log.path}: {'a header and no records' if survey.header else 'empty'}; skipped")
+                continue
+            read = log
+            if survey.bad_lines:
+                read = clean_copy(log, [b.line for b in survey.bad_lines],
+                                  Path(self._scratch_dir()) / f"{len(self.originals)}.{log.format}")
+                self.originals[read.path] = log.path
+            if survey.header is not None:
+                self._header_lines[read.path] = survey.header
+            kept.append(read)
+        return kept
+
+    def _scratch_dir(self) -> str:
+        if self._scratch is None:
+            self._scratch = tempfile.TemporaryDirectory(prefix="sortition-logs-")
+        return self._scratch.name
 
     def _file_selects(self) -> list[Select]:
         selects = []
@@ -75,7 +137,8 @@ class LogScan:
                 self.present.update(RECORD_FIELDS)  # JSON Lines have no header: any field may be there
                 self._jsonl_paths += paths
                 self.rejects.append("rejects_jsonl")
-                selects.append(_sql.jsonl_select(paths, self.names, "rejects_jsonl"))
+                selects.append(_sql.jsonl_select(paths, self.names, "rejects_jsonl", self.originals,
+                                                 self.max_line_bytes))
             elif fmt == "parquet":
                 source = _sql.parquet_source(paths)
                 where = paths[0] if len(paths) == 1 else f"{len(paths)} Parquet files"
@@ -85,9 +148,10 @@ class LogScan:
             else:
                 for index, log in enumerate(group):
                     delimiter, head = self._csv_layout(log)
-                    self._check_columns({c: "VARCHAR" for c in head}, log.path)
+                    self._check_columns({c: "VARCHAR" for c in head}, self.original(log.path))
                     self.rejects.append(f"rejects_csv_{index}")
-                    selects.append(_sql.csv_select(log.path, delimiter, head, self.names, f"rejects_csv_{index}"))
+                    selects.append(_sql.csv_select(log.path, delimiter, head, self.names, f"rejects_csv_{index}",
+                                                   self.original(log.path), self.max_line_bytes))
         return selects
 
     def _table_select(self, table: Any) -> Select:
@@ -104,42 +168,29 @@ class LogScan:
         self.sources = [label]
         return _sql.table_select(TABLE_VIEW, present, self.names, label)
 
-    def other_columns(self, sample_lines: int = 10_000) -> list[str]:
-        """Columns of the logs that are not fields of the exposure record: the candidate segments.
-
-        CSV and Parquet files and tables say theirs in the header; JSON Lines
-        files are sampled (the keys of their first `sample_lines` records).
-        """
+    def log_columns(self, sample_lines: int = 10_000) -> list[str]:
+        """Every column of the logs: CSV and Parquet files and tables say theirs in the header; JSON Lines files
+        are sampled (the keys of their first `sample_lines` records)."""
         found = dict(self._columns_seen)
         if self._jsonl_paths:
             keys = self.fetch(_sql.jsonl_keys(self._jsonl_paths, sample_lines))
             found.update(dict.fromkeys(sorted(key for (key,) in keys)))
-        taken = set(self.names.columns.values()) | set(RECORD_FIELDS) | READER_COLUMNS
-        return [name for name in found if name not in taken]
+        return [name for name in found if name not in READER_COLUMNS]
 
-    # -- files without records ---------------------------------------------------------------------
+    def other_columns(self) -> list[str]:
+        """Columns of the logs that are not fields of the exposure record, nor mapped: the candidate segments."""
+        taken = set(self.names.columns.values()) | set(self.names.mapped.values()) | set(RECORD_FIELDS)
+        return [name for name in self.log_columns() if name not in taken]
 
-    def _has_records(self, log: LogFile) -> bool:
-        """False, with a note, for an empty file or a CSV with only a header; keeps CSV header lines for later."""
-        if log.format == "parquet":
-            empty = Path(log.path).stat().st_size == 0
-        else:
-            opener: Callable[..., Any] = gzip.open if log.compressed else open
-            try:
-                with opener(log.path, "rt", encoding="utf-8-sig", newline="") as stream:
-                    if log.format in ("csv", "tsv"):
-                        header = stream.readline()
-                        if header.strip():
-                            self._header_lines[log.path] = header
-                        elif any(line.strip() for line in stream):
-                            raise LogError(f"{log.path}:1: empty header line; a CSV log starts with the column names")
-                    empty = not any(line.strip() for line in stream)
-            except (OSError, UnicodeDecodeError, EOFError) as exc:
-                raise LogError(f"{log.path}: cannot read ({exc})") from None
-        if empty:
-            what = "a header and no records" if log.path in self._header_lines else "empty"
-            self.notes.append(f"{log.path}: {what}; skipped")
-        return not empty
+    def _check_mapping(self) -> None:
+        """A mapping to a column the logs do not have is an error that lists the columns they have."""
+        if not self.names.mapped:
+            return
+        columns = self.log_columns()
+        for name, column in self.names.mapped.items():
+            if column not in columns:
+                raise LogError(f"{name}={column}: the logs have no column {column!r} "
+                               f"(columns: {', '.join(columns) or 'none'})")
 
     # -- columns -----------------------------------------------------------------------------------
 
@@ -165,6 +216,7 @@ class LogScan:
         another delimiter is used, with a note, only when the header needs it.
         """
         line = self._header_lines[log.path]
+        where = self.original(log.path)
         default = "\t" if log.format == "tsv" else ","
         candidates = [default] + [d for d in CSV_DELIMITERS if d != default]
         split = {d: [name.strip() for name in next(csv.reader([line], delimiter=d), [])] for d in candidates}
@@ -174,10 +226,10 @@ class LogScan:
         names = [name or f"column_{i + 1}" for i, name in enumerate(split[delimiter])]
         repeated = next((n for n in names if names.count(n) > 1), None)
         if repeated is not None:
-            raise LogError(f"{log.path}:1: column {repeated!r} appears twice in the header")
+            raise LogError(f"{where}:1: column {repeated!r} appears twice in the header")
         if delimiter != default:
-            self.notes.append(f"{log.path}: fields separated by {'tab' if delimiter == chr(9) else repr(delimiter)}")
-        self.delimiters[log.path] = delimiter
+            self.notes.append(f"{where}: fields separated by {'tab' if delimiter == chr(9) else repr(delimiter)}")
+        self.delimiters[where] = delimiter
         return delimiter, names
 
     # -- how times were read -----------------------------------------------------------------------
@@ -221,8 +273,18 @@ class LogScan:
         except duckdb.Error as exc:
             raise LogError(_read_error(exc)) from None
 
+    def rejected(self) -> list[tuple[str, str, int, str, str]]:
+        """(kind, file, line, detail, text) of each line a reader rejected, and of each line no reader was given."""
+        rows = [(kind, self.original(file), line, detail, text)
+                for rejects in self.rejects for kind, file, line, detail, text in self.fetch(_sql.rejected_rows(rejects))]
+        return rows + [(bad.kind, file, bad.line, bad.detail, bad.text) for file, bad in self.bad_lines]
+
     def close(self) -> None:
-        self.con.close()
+        if hasattr(self, "con"):
+            self.con.close()
+        if self._scratch is not None:
+            self._scratch.cleanup()
+            self._scratch = None
 
 
 def _read_error(exc: duckdb.Error) -> str:

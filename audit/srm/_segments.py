@@ -6,7 +6,7 @@ segment value and arm in, `SegmentResult`s and a `Localisation` out.
 
 from __future__ import annotations
 
-from datetime import date, timedelta
+from datetime import date
 from typing import Mapping, Sequence
 
 from . import _stats
@@ -50,12 +50,13 @@ def without_worst(design: Design, counts: ArmCounts, segments: Sequence[SegmentR
 
 
 def day_results(design: Design, by_day: Mapping[date, ArmCounts]) -> list[DayResult]:
-    """Each day from the first to the last with new units: that day's test, the cumulative one, the anytime-valid one."""
-    if not by_day:
-        return []
-    first, last = min(by_day), max(by_day)
-    days = [first + timedelta(n) for n in range((last - first).days + 1)]
-    daily = [list(by_day.get(d, [0] * len(design.arms))) for d in days]
+    """Each day with new units: that day's test, the cumulative one, the anytime-valid one.
+
+    Days without new units are left out: they change neither cumulative test,
+    and a record dated years away must not cost a loop over the days between.
+    """
+    days = sorted(by_day)
+    daily = [list(by_day[d]) for d in days]
     cumulative = _stats.cumulative_fits(daily, design.shares)
     sequential = _stats.sequential_p_values(daily, design.shares)
     return [DayResult(d, tuple(counts), _stats.chi_square_fit(counts, design.shares).p_value, fit.p_value, anytime)

@@ -481,6 +481,7 @@ class SparkUnitTables:
         self.names = names
         self.sources = reader.sources
         self.notes = reader.notes
+        self.unreadable: list[tuple[str, str]] = []  # this reader stops on a file it cannot read
         self.attributes = names.attributes
         self.layer_logged = "layer" in reader.present
         self.kept = (VERSION_COLUMNS if keep_versions else []) + [names.attribute_column(a) for a in self.attributes]

@@ -40,7 +40,8 @@ Values that still cannot be read (a `ts` of "yesterday", a `forced` of
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from datetime import date, timedelta
 from typing import Iterable, Mapping, Sequence
 
 from bucketing import RECORD_FIELDS
@@ -75,18 +76,27 @@ FLAG_EXPECTED = "expected true or false (or yes/no, 1/0), found "
 
 @dataclass(frozen=True)
 class FieldNames:
-    """Which log column holds each field of the record, and the unit attributes kept (named `a_<index>`)."""
+    """Which log column holds each field of the record and each unit attribute kept (named `a_<index>`).
+
+    `mapped` is what the caller asked for: record field or attribute -> log
+    column; a name it does not map is its own column.
+    """
 
     columns: Mapping[str, str]  # record field -> log column, for every field of the record
     attributes: tuple[str, ...] = ()
+    mapped: Mapping[str, str] = field(default_factory=dict)
 
     @classmethod
     def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str]) -> FieldNames:
-        return cls({name: (columns or {}).get(name, name) for name in RECORD_FIELDS},
-                   tuple(dict.fromkeys(attributes)))
+        mapped = dict(columns or {})
+        return cls({name: mapped.get(name, name) for name in RECORD_FIELDS}, tuple(dict.fromkeys(attributes)), mapped)
 
     def attribute_column(self, name: str) -> str:
         return f"a_{self.attributes.index(name)}"
+
+    def log_column(self, attribute: str) -> str:
+        """The log column that holds a unit attribute."""
+        return self.mapped.get(attribute, attribute)
 
 
 @dataclass(frozen=True)
@@ -111,11 +121,35 @@ def file_list(paths: Sequence[str]) -> str:
     return "[" + ", ".join(text(p) for p in paths) + "]"
 
 
+DUCKDB_MAX_LINE = 2_000_000  # DuckDB's own default limit of a line, in bytes
+DUCKDB_BUFFER = 32 * 1024 * 1024  # and of its read buffer
+
+
+def line_limits(max_line_bytes: int) -> str:
+    """Reader options that let every line up to the cap through (longer ones never reach a reader: see `_files`)."""
+    if max_line_bytes + 2 <= DUCKDB_MAX_LINE:
+        return ""
+    return f", max_line_size={max_line_bytes + 2}, buffer_size={max(DUCKDB_BUFFER, 2 * (max_line_bytes + 2))}"
+
+
 def raw_lines(paths: Sequence[str], options: str = "") -> str:
     """JSON Lines files as one text column `line`, however their lines end."""
     # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
     return (f"read_csv({file_list(paths)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
             f"header=false, auto_detect=false, strict_mode=false{', ' + options if options else ''})")
+
+
+def json_pointer(key: str) -> str:
+    """The JSON Pointer (RFC 6901) of a top-level key: no quoting rules but `~` and `/`, whatever else the key holds."""
+    return "/" + key.replace("~", "~0").replace("/", "~1")
+
+
+def file_label(column: str, originals: Mapping[str, str]) -> str:
+    """The log's own path for a reader's file name column (clean copies stand for the logs they were made from)."""
+    if not originals:
+        return column
+    return "CASE " + column + " " + " ".join(f"WHEN {text(copy)} THEN {text(log)}" for copy, log in originals.items()) \
+        + f" ELSE {column} END"
 
 
 def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str, str], names: FieldNames,
@@ -163,10 +197,14 @@ def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str
     return Select(f"SELECT {', '.join(select)} FROM {source}", "ts" not in native)
 
 
-def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Select:
-    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`."""
-    fields = [names.columns[n] for n in RECORD_FIELDS] + list(names.attributes)
-    json_paths = "[" + ", ".join(text('$."' + n.replace('"', '\\"') + '"') for n in fields) + "]"
+def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str, originals: Mapping[str, str] = {},
+                 max_line_bytes: int = DUCKDB_MAX_LINE) -> Select:
+    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`.
+
+    `originals` maps a clean copy among `paths` to the log it stands for.
+    """
+    fields = [names.columns[n] for n in RECORD_FIELDS] + [names.log_column(a) for a in names.attributes]
+    json_paths = "[" + ", ".join(text(json_pointer(n)) for n in fields) + "]"
     index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in names.attributes])}
     values = {k: f"v[{i}]" for k, i in index.items()}
     types = {k: f"t[{i}]" for k, i in index.items()}
@@ -179,7 +217,7 @@ def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Selec
     broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
               f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
     source = raw_lines(paths, f"filename=true, store_rejects=true, rejects_table='{rejects}_errors', "
-                              f"rejects_scan='{rejects}_scans'")
+                              f"rejects_scan='{rejects}_scans'{line_limits(max_line_bytes)}")
     parsed = f"""(
         SELECT filename, line, is_object,
                CASE WHEN is_object THEN json_extract_string(line, {json_paths}) END AS v,
@@ -190,7 +228,8 @@ def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Selec
             WHERE line IS NOT NULL AND trim(line) <> ''
         )
     )"""
-    extra = "filename AS _file, NULL::BIGINT AS _line, CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text"
+    extra = (f"{file_label('filename', originals)} AS _file, NULL::BIGINT AS _line, "
+             f"CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text")
     return normalised_select(parsed, values, kinds, names, broken=broken, extra=extra)
 
 
@@ -230,18 +269,20 @@ def typed_select(source: str, present: Mapping[str, str], names: FieldNames, ext
         else:
             values[name] = f"CAST({ident(column)} AS VARCHAR)"
     for attr in names.attributes:
-        values["a:" + attr] = f"CAST({ident(attr)} AS VARCHAR)" if attr in present else "NULL::VARCHAR"
+        column = names.log_column(attr)
+        values["a:" + attr] = f"CAST({ident(column)} AS VARCHAR)" if column in present else "NULL::VARCHAR"
     return normalised_select(source, values, kinds, names, native, extra=extra)
 
 
-def csv_select(path: str, delimiter: str, head: Sequence[str], names: FieldNames, rejects: str) -> Select:
-    """One CSV file, every column read as text, with the delimiter and column names of its header."""
+def csv_select(path: str, delimiter: str, head: Sequence[str], names: FieldNames, rejects: str, label: str,
+               max_line_bytes: int = DUCKDB_MAX_LINE) -> Select:
+    """One CSV file, every column read as text, with the delimiter and column names of its header; `label` names it."""
     options = f"delim={text(delimiter)}, quote='\"', escape='\"', header=true, auto_detect=false"
     columns = "{" + ", ".join(f"{text(c)}: 'VARCHAR'" for c in head) + "}"
-    source = (f"read_csv({text(path)}, {options}, columns={columns}, filename=true, "
-              f"store_rejects=true, rejects_table='{rejects}_errors', rejects_scan='{rejects}_scans')")
+    source = (f"read_csv({text(path)}, {options}, columns={columns}, store_rejects=true, "
+              f"rejects_table='{rejects}_errors', rejects_scan='{rejects}_scans'{line_limits(max_line_bytes)})")
     fields = ", ".join(f"coalesce({ident(c)}, '')" for c in head)
-    extra = (f"filename AS _file, NULL::BIGINT AS _line, "
+    extra = (f"{text(label)} AS _file, NULL::BIGINT AS _line, "
              f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({text(delimiter)}, {fields}), 300) END AS _text")
     return typed_select(source, {c: "VARCHAR" for c in head}, names, extra)
 
@@ -262,66 +303,91 @@ def table_select(view: str, present: Mapping[str, str], names: FieldNames, label
 # -- the unit tables -------------------------------------------------------------------------------
 
 
-def _match(design: Design, layer_logged: bool) -> str:
-    layer = f"(layer IS NULL OR layer = {text(design.layer)})" if layer_logged else "true"
-    return f"experiment = {text(design.experiment)} AND {layer}"
+PLAUSIBLE_FROM = date(2000, 1, 1)  # a record dated before this is implausible (a clock at zero, an epoch misread)
+PLAUSIBLE_AHEAD = timedelta(days=366)  # ... and so is one dated more than this after the day of the audit
 
 
-def experiment_case(designs: Sequence[Design], layer_logged: bool) -> str:
-    """A record's experiment: its index in `designs`, NULL when it is none of them."""
-    if not designs:
-        return "NULL::INTEGER"
-    return "CASE " + " ".join(f"WHEN {_match(d, layer_logged)} THEN {i}" for i, d in enumerate(designs)) + " END"
+def plausible_days(today: date) -> tuple[date, date]:
+    """The first and last day a record may plausibly be dated, on the day of the audit."""
+    return PLAUSIBLE_FROM, today + PLAUSIBLE_AHEAD
 
 
-def arm_case(designs: Sequence[Design], layer_logged: bool) -> str:
-    """A record's arm: its index in its design's arms, NULL when unknown."""
-    if not designs:
-        return "NULL::INTEGER"
-    cases = []
-    for d in designs:
-        arms = " ".join(f"WHEN arm = {text(a)} THEN {i}" for i, a in enumerate(d.arms))
-        cases.append(f"WHEN {_match(d, layer_logged)} THEN CASE {arms} END")
-    return "CASE " + " ".join(cases) + " END"
+def design_keys(designs: Sequence[Design]) -> list[tuple[str | None, str, int]]:
+    """(layer or None, experiment, index) rows that name each design: a record that logs no layer takes the first
+    design of that experiment name, as does a record whose layer is NULL."""
+    keys: dict[tuple[str | None, str], int] = {}
+    for index, d in enumerate(designs):
+        keys.setdefault((d.layer, d.experiment), index)
+        keys.setdefault((None, d.experiment), index)
+    return [(layer, experiment, index) for (layer, experiment), index in keys.items()]
 
 
-def outside_case(designs: Sequence[Design], layer_logged: bool) -> str:
-    """Whether a record falls outside its experiment's dates."""
-    if not any(d.start or d.end for d in designs):
-        return "false"
-    cases = []
-    for d in designs:
-        window = []
-        if d.start:
-            window.append(f"CAST(ts AS DATE) < DATE '{d.start.isoformat()}'")
-        if d.end:
-            window.append(f"CAST(ts AS DATE) > DATE '{d.end.isoformat()}'")
-        cases.append(f"WHEN {_match(d, layer_logged)} THEN {' OR '.join(window) or 'false'}")
-    return f"coalesce(CASE {' '.join(cases)} END, false)"
+def design_tables(designs: Sequence[Design]) -> list[tuple[str, list]]:
+    """Statements and their parameters that load the designs as tables: `design_keys`, `design_arms`,
+    `design_windows` (one row per design with dates). Joins on them cost the same for 1 design or 100,000."""
+    keys = design_keys(designs)
+    arms = [(index, position, arm) for index, d in enumerate(designs) for position, arm in enumerate(d.arms)]
+    windows = [(layer, experiment, designs[index].start, designs[index].end) for layer, experiment, index in keys
+               if designs[index].start or designs[index].end]
+
+    def table(name: str, columns: str, rows: list[tuple]) -> tuple[str, list]:
+        names = [c.split()[0] for c in columns.split(", ")]
+        selects = ", ".join(f"CAST(unnest(${i + 1}) AS {c.split()[1]}) AS {n}"
+                            for i, (n, c) in enumerate(zip(names, columns.split(", "))))
+        values = [list(column) for column in zip(*rows)] if rows else [[] for _ in names]
+        return f"CREATE OR REPLACE TEMP TABLE {name} AS SELECT {selects}", values
+
+    return [table("design_keys", "layer VARCHAR, experiment VARCHAR, exp INTEGER", keys),
+            table("design_arms", "exp INTEGER, arm_index INTEGER, arm VARCHAR", arms),
+            table("design_windows", "layer VARCHAR, experiment VARCHAR, first_day DATE, last_day DATE", windows)]
 
 
-def unit_arms(outside: str, kept: Sequence[str], epoch_times: bool) -> str:
+def _design_of(rows: str) -> str:
+    """`rows` with the index of their design, `exp` (NULL when none): records whose layer is logged match that layer."""
+    return (f"{rows} LEFT JOIN design_keys k ON k.experiment = {rows}.experiment "
+            f"AND k.layer IS NOT DISTINCT FROM {rows}.layer")
+
+
+def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: tuple[date, date]) -> str:
     """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
 
     Each row has the unit's records, how many of them repeat another one
     exactly (same unit, arm and time), and its first exposure in that arm:
     the time and the `kept` columns then. Malformed records and records
-    outside their experiment's dates are only counted: their rows have no unit.
+    outside their experiment's dates are only counted: their rows have no
+    unit. A record dated outside the `plausible` days is `implausible`, and
+    outside its experiment's dates whatever they are; `windows` says
+    whether some design has dates (in `design_windows`).
     """
     values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
     epoch = "bool_or(_ts_epoch IS NOT NULL)" if epoch_times else "false"
+    first, last = plausible
+    implausible = (f"coalesce(ts < TIMESTAMP '{first.isoformat()}' OR "
+                   f"ts >= TIMESTAMP '{(last + timedelta(days=1)).isoformat()}', false)")
+    source = "exposure_rows"
+    window = "false"
+    if windows:
+        source = ("exposure_rows LEFT JOIN design_windows w ON w.experiment = exposure_rows.experiment "
+                  "AND w.layer IS NOT DISTINCT FROM exposure_rows.layer")
+        window = "coalesce(CAST(ts AS DATE) < w.first_day OR CAST(ts AS DATE) > w.last_day, false)"
     return f"""
         CREATE TEMP TABLE unit_arms AS
         SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
         FROM (
-            SELECT _problem, layer, experiment, arm, outside, unit, count(*) AS records, min(ts) AS first_ts,
+            SELECT _problem, layer, experiment, arm, outside, implausible, unit, count(*) AS records,
+                   min(ts) AS first_ts, max(ts) AS last_ts,
                    arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
                    list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch} AS epoch_times
             FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
-                  FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
-                               _ts_epoch, {values} AS kept
-                        FROM exposure_rows))
-            GROUP BY _problem, layer, experiment, arm, outside, unit)"""
+                  FROM (SELECT _problem, layer, experiment, arm, implausible OR window_outside AS outside, implausible,
+                               unit, ts, forced, _ts_epoch, {values} AS kept
+                        FROM (SELECT exposure_rows.*, {implausible} AS implausible, {window} AS window_outside
+                              FROM {source})))
+            GROUP BY _problem, layer, experiment, arm, outside, implausible, unit)"""
+
+
+IMPLAUSIBLE = """
+    SELECT sum(records), min(first_ts), max(last_ts) FROM unit_arms WHERE implausible AND _problem IS NULL"""
 
 
 CENSUS = """
@@ -329,9 +395,10 @@ CENSUS = """
     FROM unit_arms GROUP BY ALL"""
 
 
-def unit_rows(designs: Sequence[Design], layer_logged: bool, kept: Sequence[str]) -> str:
+def unit_rows(kept: Sequence[str]) -> str:
     """One row per unit and experiment, `unit_rows`: its arm at first exposure, and whether it saw several arms.
 
+    Experiments and arms are those of the design tables (`design_tables`).
     A unit seen in several arms is left out of every count, so which of
     them comes first when two exposures share their time does not matter.
     """
@@ -340,14 +407,13 @@ def unit_rows(designs: Sequence[Design], layer_logged: bool, kept: Sequence[str]
         SELECT * EXCLUDE (first_kept), arm_low <> arm_high AS multi
                {''.join(f', first_kept[{i + 1}] AS {c}' for i, c in enumerate(kept))}
         FROM (
-            SELECT exp, unit, min(first_ts) AS first_ts, arg_min(arm, first_ts) AS arm,
-                   arg_min(first_kept, first_ts) AS first_kept, min(arm) AS arm_low, max(arm) AS arm_high,
-                   bool_or(forced) AS forced
-            FROM (SELECT {experiment_case(designs, layer_logged)} AS exp, {arm_case(designs, layer_logged)} AS arm,
-                         unit, first_ts, first_kept, forced
-                  FROM unit_arms WHERE unit IS NOT NULL)
-            WHERE arm IS NOT NULL
-            GROUP BY exp, unit)"""
+            SELECT k.exp, unit, min(first_ts) AS first_ts, arg_min(a.arm_index, first_ts) AS arm,
+                   arg_min(first_kept, first_ts) AS first_kept, min(a.arm_index) AS arm_low,
+                   max(a.arm_index) AS arm_high, bool_or(forced) AS forced
+            FROM {_design_of("unit_arms")}
+            JOIN design_arms a ON a.exp = k.exp AND a.arm = unit_arms.arm
+            WHERE unit IS NOT NULL
+            GROUP BY k.exp, unit)"""
 
 
 def segment_where(segment: Mapping[str, str], names: FieldNames) -> str:
@@ -358,9 +424,27 @@ def segment_where(segment: Mapping[str, str], names: FieldNames) -> str:
                         for k, v in segment.items())
 
 
-def tested_units(experiment: int, where: str = "true") -> str:
-    """The units an experiment's tests count: one arm only, not forced."""
-    return f"exp = {int(experiment)} AND NOT multi AND NOT forced AND ({where})"
+def tested_units(experiment: int | None, where: str = "true") -> str:
+    """The units an experiment's tests count (of every experiment when None): one arm only, not forced."""
+    which = "true" if experiment is None else f"exp = {int(experiment)}"
+    return f"{which} AND NOT multi AND NOT forced AND ({where})"
+
+
+ARM_UNITS = f"SELECT exp, arm, count(*) FROM unit_rows WHERE {tested_units(None)} GROUP BY ALL"
+LEFT_OUT_UNITS = """
+    SELECT exp, count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi) FROM unit_rows GROUP BY exp"""
+
+
+def multi_arm_examples(per_experiment: int) -> str:
+    """The first units (by id) of each experiment seen in several arms."""
+    return f"""
+        SELECT exp, unit, arm_low, arm_high FROM unit_rows WHERE multi
+        QUALIFY row_number() OVER (PARTITION BY exp ORDER BY unit) <= {int(per_experiment)} ORDER BY exp, unit"""
+
+
+def day_units(where: str) -> str:
+    """Units per experiment, day of first exposure and arm."""
+    return f"SELECT exp, CAST(first_ts AS DATE), arm, count(*) FROM unit_rows WHERE {where} GROUP BY ALL"
 
 
 EPOCH_NOTES = """
@@ -380,7 +464,8 @@ def malformed_examples(per_kind: int = EXAMPLES_PER_KIND) -> str:
 def rejected_rows(rejects: str) -> str:
     """Rows a CSV reader rejected, one per file line (a row may have several errors; each scan logs it again)."""
     return f"""
-        SELECT CASE WHEN e.error_type = 'MISSING COLUMNS' THEN 'truncated' ELSE 'unparseable' END,
+        SELECT CASE e.error_type WHEN 'MISSING COLUMNS' THEN 'truncated' WHEN 'LINE SIZE OVER MAXIMUM' THEN 'too_long'
+                    ELSE 'unparseable' END,
                s.file_path, e.line, e.error_message, left(e.csv_line, 300)
         FROM {rejects}_errors e JOIN {rejects}_scans s USING (scan_id, file_id)
         QUALIFY row_number() OVER (PARTITION BY s.file_path, e.line ORDER BY e.scan_id, e.column_idx) = 1

@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from typing import NamedTuple, Sequence
 
-from scipy import stats
+from scipy import special, stats
 
 from .._errors import AuditError
 
@@ -66,13 +66,15 @@ def chi_square_fit(observed: Sequence[int], shares: Sequence[float]) -> FitResul
         return FitResult(0.0, max(len(pairs) - 1, 0), 1.0)
     scale = sum(s for _, s in pairs)
     expected = [total * s / scale for _, s in pairs]
-    statistic, p_value = stats.chisquare([o for o, _ in pairs], expected)
-    return FitResult(float(statistic), len(pairs) - 1, float(p_value))
+    # Pearson's statistic and its upper tail, as scipy.stats.chisquare computes them (chi2.sf is special.chdtrc),
+    # without its argument checks: an audit of 100,000 experiments makes over a million of these fits.
+    statistic = sum((o - e) ** 2 / e for (o, _), e in zip(pairs, expected))
+    return FitResult(float(statistic), len(pairs) - 1, chi_square_p_value(statistic, len(pairs) - 1))
 
 
 def chi_square_p_value(statistic: float, df: int) -> float:
     """Upper-tail p-value of a chi-square statistic."""
-    return float(stats.chi2.sf(statistic, df))
+    return float(special.chdtrc(df, statistic))
 
 
 def arm_gaps(observed: Sequence[int], shares: Sequence[float]) -> list[ArmGap]:
@@ -132,7 +134,7 @@ def share_interval(count: int, total: int, confidence: float = 0.95) -> tuple[fl
     """Wilson score interval for a share count/total; (0, 1) when there are no units."""
     if total <= 0:
         return (0.0, 1.0)
-    z = float(stats.norm.ppf(0.5 + confidence / 2))
+    z = float(special.ndtri(0.5 + confidence / 2))  # the normal quantile, as stats.norm.ppf computes it
     p = count / total
     denominator = 1 + z * z / total
     centre = (p + z * z / (2 * total)) / denominator
