@@ -119,7 +119,7 @@ def changed_configs(tmp_path_factory) -> tuple[Path, Path]:
     shutil.copytree(EXAMPLE, new)
     edit(new / "audio.yaml", "weight: 20", "weight: 30")
     edit(new / "audio.yaml", "weight: 80", "weight: 70")
-    edit(new / "audio.yaml", "        owner: platform-team\n", "        owner: platform-team\n        rollout: new-engine\n")
+    assert "rollout: new-engine" in (new / "audio.yaml").read_text()  # the example's audio engine is a rollout
     edit(new / "lessons.yaml", 'buckets: ["0-3999"]', 'buckets: ["0-2999"]')
     edit(new / "lessons.yaml", "        salt: shorter-lessons-1\n", "        salt: shorter-lessons-1\n"
          "        reassign_ok: {why: invented ramp-down to 30 % of the layer, moves_up_to: 30}\n")
