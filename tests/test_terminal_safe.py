@@ -52,3 +52,12 @@ def test_diff_escapes_the_text_of_an_approval(sortition, tmp_path):
 def test_layout_text_has_no_control_characters(sortition):
     got = sortition("layout", EXAMPLE)
     assert got.exit_code == 0 and got.stdout.strip() and not _raw_controls(got.stdout)
+
+
+def test_one_line_errors_on_stderr_escape_a_hostile_file_name(sortition, tmp_path):
+    old = tmp_path / "old.yaml"
+    old.write_text("# Invented.\nformat: 1\nlayers: []\n")
+    hostile = tmp_path / f"new{CLEAR}.yaml"
+    hostile.write_text("format: 1\nlayers: [\n")
+    got = sortition("diff", old, hostile)
+    assert got.exit_code == 2 and "new\\x1b[2J.yaml" in got.stderr and not _raw_controls(got.stderr)

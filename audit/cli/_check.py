@@ -10,7 +10,7 @@ import typer
 
 from ..checks import DEFAULT_MIN_ARM_UNITS, RULES, UNREADABLE_RULES, CheckResult, check_config, meanings
 from ..checks import why_not_ignorable
-from ..render import as_json, check_text, rules_text, sarif_json
+from ..render import as_json, check_text, rules_text, sarif_json, terminal_safe
 from ._exit import check_exit, fail, guarded
 from ._options import FindingsFormat, iso_day, weekly_units
 
@@ -67,7 +67,7 @@ def register(app: typer.Typer) -> None:
             if result.unreadable and fmt is not FindingsFormat.text:
                 for finding in result.findings:
                     if finding.rule in UNREADABLE_RULES:
-                        typer.echo(f"sortition: {finding}", err=True)
+                        typer.echo(terminal_safe(f"sortition: {finding}"), err=True)
             return check_exit(result, strict)
 
         guarded(run)

@@ -17,6 +17,7 @@ import typer
 from bucketing import ConfigError, SortitionError
 
 from .._errors import MissingFieldError
+from ..render import terminal_safe
 
 if TYPE_CHECKING:
     from ..checks import CheckResult, ConfigDiff
@@ -29,7 +30,7 @@ state = {"debug": False}
 
 def fail(message: str, code: int = UNREADABLE) -> NoReturn:
     """Print one line on stderr and exit with `code` (2: unreadable input, by the contract)."""
-    typer.echo(f"sortition: {message}", err=True)
+    typer.echo(terminal_safe(f"sortition: {message}"), err=True)
     raise typer.Exit(code)
 
 
@@ -85,7 +86,7 @@ def guarded(run: Callable[[], int | None]) -> None:
         if state["debug"]:
             traceback.print_exc()
         for line in [str(p) for p in exc.problems] or [str(exc)]:
-            typer.echo(f"sortition: {line}", err=True)
+            typer.echo(terminal_safe(f"sortition: {line}"), err=True)
         raise typer.Exit(UNREADABLE)
     except (SortitionError, OSError, ValueError, KeyError) as exc:
         if state["debug"]:
