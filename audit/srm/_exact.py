@@ -1,0 +1,266 @@
+"""Which split test to run and running it: exact tests for small counts, closed arms, ramps (mixtures).
+
+A split is the count of units per arm. Under the design each unit lands in
+arm j with the share of the design version in force at its first exposure,
+so the counts are a sum of independent multinomials, one per version (a
+mixture when the weights were ramped; a plain multinomial with one version).
+`split_test` picks the test and returns a small named result, scipy.stats
+style; `split_tests` runs it over many segments at once.
+
+Which test runs (the `test` field of the result):
+
+- ``exact-binomial``: two arms, one design. Exact for every count (the
+  two-sided likelihood-ordering p-value of ``scipy.stats.binomtest``,
+  computed for many segments at once). Cochran's rule (Cochran 1954: every
+  expected count at least 5) is about the 5 % level; after Holm over 200
+  segments each test runs at 0.0005 / 200, where the chi-square tail is far
+  too thin for small arms (a 99/1 segment of 1,000 units: chi-square rejects
+  with probability 4.2e-5 instead of 2.5e-6, computed against the binomial
+  pmf). With two arms the exact test is cheap, so it always runs.
+- ``exact-poisson-binomial``: two arms, several design versions, up to
+  MIXTURE_EXACT_UNITS units: the exact distribution of a sum of binomials.
+- ``pearson-chi-square`` / ``mixture-chi-square``: three or more arms with
+  every expected count >= 5 (Cochran's rule), or two arms over several
+  versions with many units. With several versions the statistic uses the
+  mixture's covariance (sum over versions of n_v (diag(s_v) - s_v s_v')),
+  which is exact to first order; with one version it is Pearson's statistic.
+- ``exact-multinomial``: three or more arms, one design, some expected count
+  below 5, few enough outcomes to enumerate (MULTINOMIAL_OUTCOMES): the sum
+  of the probabilities of every outcome no more likely than the one seen.
+- ``monte-carlo-multinomial`` / ``monte-carlo-mixture``: the same p-value
+  (for a mixture: ordered by the chi-square statistic) estimated from
+  MONTE_CARLO_DRAWS seeded draws; `mc_error` is how far the 99 %
+  Clopper-Pearson upper bound lies above the estimate.
+
+An arm whose designed share is 0 (closed) cannot hold a unit: any unit there
+makes p = 0 (`closed_units` counts them); `open_pvalue` is the test on the
+open arms alone.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import NamedTuple, Sequence
+
+import numpy as np
+from scipy import special, stats
+
+COCHRAN_MINIMUM = 5.0  # Cochran (1954): chi-square when every expected count is at least 5
+MULTINOMIAL_OUTCOMES = 200_000  # enumerate the exact multinomial when it has at most this many outcomes
+MIXTURE_EXACT_UNITS = 20_000  # exact Poisson-binomial up to this many units; the mixture chi-square above
+MONTE_CARLO_DRAWS = 100_000
+MONTE_CARLO_SEED = 20261202  # fixed: the same counts give the same p-value on every run
+MONTE_CARLO_CONFIDENCE = 0.99
+_TIES = 1 + 1e-7  # outcomes this close in probability count as equally likely (as scipy.stats.binomtest does)
+
+
+class SplitTest(NamedTuple):
+    """The test of one split against its design."""
+
+    test: str  # which test ran, see the module docstring; "none" when fewer than two open arms hold units
+    pvalue: float  # 0 when a closed arm holds units
+    statistic: float  # chi-square statistic of the open arms (Pearson's, or the mixture's), for reading
+    df: int
+    mc_error: float | None  # Monte Carlo only: the 99 % upper bound of the p-value minus the estimate
+    closed_units: int  # units in arms the design closes (share 0)
+    open_pvalue: float  # the test on the open arms alone
+
+
+def binomial_pvalues(successes, trials, share) -> np.ndarray:
+    """Two-sided exact binomial p-values, elementwise (as `scipy.stats.binomtest(k, n, p).pvalue`).
+
+    The p-value sums the probabilities of every count no more likely than the
+    one seen. The other tail's edge is found by bisection on the log pmf, for
+    all elements at once, so 400,000 segments take about a second.
+    """
+    k, n, p = (np.atleast_1d(a).ravel() for a in np.broadcast_arrays(
+        np.asarray(successes, dtype=np.int64), np.asarray(trials, dtype=np.int64), np.asarray(share, dtype=float)))
+    shape = np.broadcast_shapes(np.shape(successes), np.shape(trials), np.shape(share))
+    pvalues = np.ones(k.shape)
+    below, above = k < n * p, k > n * p
+    if below.any():
+        # k below the mean: the first count above the mode no more likely than k (the pmf falls there).
+        kb, nb, pb = k[below], n[below], p[below]
+        limit = stats.binom.logpmf(kb, nb, pb) + math.log(_TIES)
+        edge = _first_true(np.ceil(nb * pb).astype(np.int64), nb + 1,
+                           lambda x: stats.binom.logpmf(x, nb, pb) <= limit)
+        pvalues[below] = stats.binom.cdf(kb, nb, pb) + stats.binom.sf(edge - 1, nb, pb)
+    if above.any():
+        # k above the mean: the last count below the mode no more likely than k (the pmf rises there).
+        ka, na, pa = k[above], n[above], p[above]
+        limit = stats.binom.logpmf(ka, na, pa) + math.log(_TIES)
+        edge = _first_true(np.zeros_like(na), np.floor(na * pa).astype(np.int64) + 1,
+                           lambda x: stats.binom.logpmf(x, na, pa) > limit) - 1
+        pvalues[above] = stats.binom.cdf(edge, na, pa) + stats.binom.sf(ka - 1, na, pa)
+    return np.minimum(1.0, pvalues).reshape(shape)
+
+
+def _first_true(low: np.ndarray, high: np.ndarray, predicate) -> np.ndarray:
+    """Per element, the smallest x in [low, high) where a predicate monotone in x (False, then True) holds; high if none."""
+    low, high = low.copy(), high.copy()
+    while np.any(low < high):
+        middle = (low + high) // 2
+        holds = predicate(middle)
+        searching = low < high
+        high = np.where(searching & holds, middle, high)
+        low = np.where(searching & ~holds, middle + 1, low)
+    return low
+
+
+def split_test(observed: Sequence, shares: Sequence, *, seed: int = MONTE_CARLO_SEED) -> SplitTest:
+    """Test units per arm against the design: one row of counts and shares, or one row per design version."""
+    return split_tests([observed], shares, seed=seed)[0]
+
+
+def split_tests(observed: Sequence, shares: Sequence, *, seed: int = MONTE_CARLO_SEED) -> list[SplitTest]:
+    """`split_test` over many splits (segments) that share a design: observed[segment][(version,)] arm."""
+    counts = np.asarray(observed, dtype=np.int64)
+    design = np.asarray(shares, dtype=float)
+    if design.ndim == 1:
+        design, counts = design[None, :], counts[:, None, :]
+    if counts.ndim != 3 or counts.shape[1:] != design.shape:
+        raise ValueError(f"counts of shape {counts.shape[1:]} for shares of shape {design.shape}")
+    if np.any(design < 0) or not np.allclose(design.sum(axis=1), 1.0):
+        raise ValueError(f"each version's shares must be non-negative and sum to 1, found {design.tolist()}")
+    if design.shape == (1, 2):
+        return _two_arm_tests(counts[:, 0, :], design[0])
+    return [_mixture_test(c, design, seed) for c in counts]
+
+
+def _two_arm_tests(counts: np.ndarray, shares: np.ndarray) -> list[SplitTest]:
+    """One design, two arms: exact binomial for every segment at once."""
+    closed = shares == 0
+    closed_units = counts[:, closed].sum(axis=1) if closed.any() else np.zeros(len(counts), dtype=np.int64)
+    if closed.any():
+        return [_with_closed(SplitTest("none", 1.0, 0.0, 0, None, 0, 1.0), int(c)) for c in closed_units]
+    n = counts.sum(axis=1)
+    first = counts[:, 0]
+    pvalues = binomial_pvalues(first, n, shares[0])
+    variance = n * shares[0] * shares[1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        statistic = np.where(n > 0, (first - n * shares[0]) ** 2 / variance, 0.0)
+    return [SplitTest("exact-binomial", float(p), float(s), 1, None, 0, float(p)) if total else
+            SplitTest("none", 1.0, 0.0, 0, None, 0, 1.0)
+            for p, s, total in zip(pvalues, statistic, n)]
+
+
+def _with_closed(test: SplitTest, closed_units: int) -> SplitTest:
+    return test._replace(pvalue=0.0, closed_units=closed_units) if closed_units else test
+
+
+def _mixture_test(counts: np.ndarray, shares: np.ndarray, seed: int) -> SplitTest:
+    """One split, counts per (version, arm)."""
+    closed_cells = shares == 0
+    closed_units = int(counts[closed_cells].sum())
+    counts = np.where(closed_cells, 0, counts)
+    used = counts.sum(axis=1) > 0
+    counts, shares = counts[used], shares[used]
+    open_arms = (shares > 0).any(axis=0) if len(shares) else np.zeros(0, dtype=bool)
+    counts, shares = counts[:, open_arms], shares[:, open_arms]
+    if counts.shape[1] < 2 or counts.sum() == 0:
+        return _with_closed(SplitTest("none", 1.0, 0.0, 0, None, 0, 1.0), closed_units)
+    statistic, df = _chi_square(counts, shares)
+    one_design = len(shares) == 1
+    per_version = counts.sum(axis=1)
+    expected = per_version @ shares
+    if one_design and counts.shape[1] == 2:
+        p = float(binomial_pvalues(counts[0, 0], per_version[0], shares[0, 0]))
+        test = SplitTest("exact-binomial", p, statistic, df, None, 0, p)
+    elif counts.shape[1] == 2 and per_version.sum() <= MIXTURE_EXACT_UNITS:
+        p = _poisson_binomial_pvalue(int(counts[:, 0].sum()), per_version, shares[:, 0])
+        test = SplitTest("exact-poisson-binomial", p, statistic, df, None, 0, p)
+    elif expected.min() >= COCHRAN_MINIMUM or counts.shape[1] == 2:
+        p = float(stats.chi2.sf(statistic, df)) if df else 1.0
+        test = SplitTest("pearson-chi-square" if one_design else "mixture-chi-square", p, statistic, df, None, 0, p)
+    elif one_design and math.comb(int(per_version[0]) + counts.shape[1] - 1, counts.shape[1] - 1) \
+            <= MULTINOMIAL_OUTCOMES:
+        p = _exact_multinomial_pvalue(counts[0], shares[0])
+        test = SplitTest("exact-multinomial", p, statistic, df, None, 0, p)
+    else:
+        p, error = _monte_carlo_pvalue(counts, shares, statistic, seed)
+        name = "monte-carlo-multinomial" if one_design else "monte-carlo-mixture"
+        test = SplitTest(name, p, statistic, df, error, 0, p)
+    return _with_closed(test, closed_units)
+
+
+def _chi_square(counts: np.ndarray, shares: np.ndarray) -> tuple[float, int]:
+    """Quadratic form of the deviations in the inverse of their covariance under the design.
+
+    The covariance of the arm totals is the sum over versions of
+    n_v (diag(s_v) - s_v s_v'); with one version its generalised inverse gives
+    Pearson's statistic exactly. A deviation the design cannot produce at all
+    (outside the covariance's range) has an infinite statistic.
+    """
+    per_version = counts.sum(axis=1)
+    deviation = counts.sum(axis=0) - per_version @ shares
+    covariance = _covariance(per_version, shares)
+    inverse = np.linalg.pinv(covariance, hermitian=True)
+    rank = int(np.linalg.matrix_rank(covariance, hermitian=True))
+    if np.abs(covariance @ inverse @ deviation - deviation).max() > 1e-6 * max(1.0, np.abs(deviation).max()):
+        return math.inf, rank
+    return float(max(deviation @ inverse @ deviation, 0.0)), rank
+
+
+def _covariance(per_version: np.ndarray, shares: np.ndarray) -> np.ndarray:
+    """Covariance of the arm totals under the design: a sum of one multinomial covariance per version."""
+    return sum(n * (np.diag(s) - np.outer(s, s)) for n, s in zip(per_version, shares))
+
+
+def _likelihood_ordering_pvalue(pmf: np.ndarray, seen: float) -> float:
+    """Sum of the probabilities of the outcomes no more likely than the one seen."""
+    return float(min(1.0, pmf[pmf <= seen * _TIES].sum()))
+
+
+def _poisson_binomial_pvalue(first_arm: int, per_version: np.ndarray, first_shares: np.ndarray) -> float:
+    """Exact two-sided p-value of the first arm's count when version v contributes Binomial(n_v, s_v)."""
+    pmf = np.ones(1)
+    for n, s in zip(per_version, first_shares):
+        pmf = np.convolve(pmf, stats.binom.pmf(np.arange(n + 1), n, s))
+    return _likelihood_ordering_pvalue(pmf, pmf[first_arm])
+
+
+def compositions(total: int, parts: int) -> np.ndarray:
+    """Every way to put `total` units into `parts` arms, one row each (C(total + parts - 1, parts - 1) rows)."""
+    if parts == 1:
+        return np.array([[total]], dtype=np.int64)
+    blocks = []
+    for first in range(total + 1):
+        rest = compositions(total - first, parts - 1)
+        blocks.append(np.column_stack([np.full(len(rest), first, dtype=np.int64), rest]))
+    return np.concatenate(blocks)
+
+
+def _multinomial_logpmf(rows: np.ndarray, shares: np.ndarray) -> np.ndarray:
+    n = rows.sum(axis=1)
+    return special.gammaln(n + 1) + (special.xlogy(rows, shares) - special.gammaln(rows + 1)).sum(axis=1)
+
+
+def _exact_multinomial_pvalue(observed: np.ndarray, shares: np.ndarray) -> float:
+    outcomes = compositions(int(observed.sum()), len(observed))
+    logpmf = _multinomial_logpmf(outcomes, shares)
+    seen = _multinomial_logpmf(observed[None, :], shares)[0]
+    return float(min(1.0, np.exp(logpmf[logpmf <= seen + math.log(_TIES)]).sum()))
+
+
+def _monte_carlo_pvalue(counts: np.ndarray, shares: np.ndarray, statistic: float, seed: int) -> tuple[float, float]:
+    """Share of seeded draws from the design at least as extreme as the split seen, and its error bound.
+
+    One design: draws ordered by their probability (estimating the exact
+    multinomial p-value). Several versions: ordered by the chi-square
+    statistic, the mixture's probability having no closed form.
+    """
+    rng = np.random.default_rng(seed)
+    per_version = counts.sum(axis=1)
+    draws = sum(rng.multinomial(n, s, size=MONTE_CARLO_DRAWS) for n, s in zip(per_version, shares))
+    if len(shares) == 1:
+        seen = _multinomial_logpmf(counts, shares[0])[0]
+        extreme = int((_multinomial_logpmf(draws, shares[0]) <= seen + math.log(_TIES)).sum())
+    else:
+        deviations = draws - per_version @ shares
+        inverse = np.linalg.pinv(_covariance(per_version, shares), hermitian=True)
+        simulated = np.einsum("ij,jk,ik->i", deviations, inverse, deviations)
+        extreme = int((simulated >= statistic * (1 - 1e-9)).sum())
+    # (1 + hits) / (1 + draws) counts the split seen as one of the draws, so the estimate is a valid p-value.
+    estimate = (1 + extreme) / (1 + MONTE_CARLO_DRAWS)
+    upper = float(stats.beta.ppf(MONTE_CARLO_CONFIDENCE, extreme + 1, MONTE_CARLO_DRAWS - extreme))
+    return estimate, max(upper - estimate, 0.0)
