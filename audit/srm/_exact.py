@@ -220,14 +220,20 @@ def _poisson_binomial_pvalue(first_arm: int, per_version: np.ndarray, first_shar
 
 
 def compositions(total: int, parts: int) -> np.ndarray:
-    """Every way to put `total` units into `parts` arms, one row each (C(total + parts - 1, parts - 1) rows)."""
-    if parts == 1:
-        return np.array([[total]], dtype=np.int64)
-    blocks = []
-    for first in range(total + 1):
-        rest = compositions(total - first, parts - 1)
-        blocks.append(np.column_stack([np.full(len(rest), first, dtype=np.int64), rest]))
-    return np.concatenate(blocks)
+    """Every way to put `total` units into `parts` arms, one row each (C(total + parts - 1, parts - 1) rows).
+
+    Built one arm at a time: each partial row is repeated once per count its
+    next arm can take (0 to what is left), so no Python loop runs per row.
+    """
+    rows = np.zeros((1, 0), dtype=np.int64)
+    left = np.array([total], dtype=np.int64)
+    for _ in range(parts - 1):
+        choices = left + 1
+        parent = np.repeat(np.arange(len(rows)), choices)
+        taken = np.arange(choices.sum()) - np.repeat(np.cumsum(choices) - choices, choices)
+        rows = np.column_stack([rows[parent], taken])
+        left = left[parent] - taken
+    return np.column_stack([rows, left])
 
 
 def _multinomial_logpmf(rows: np.ndarray, shares: np.ndarray) -> np.ndarray:

@@ -46,12 +46,14 @@ def onset(daily: Sequence, shares: Sequence) -> Onset | None:
     """
     counts = np.asarray(daily, dtype=float)
     design = np.asarray(shares, dtype=float)
+    if counts.size == 0:
+        return None
     if design.ndim == 1:
         design, counts = design[None, :], counts[:, None, :]
     if counts.ndim != 3 or counts.shape[1:] != design.shape:
         raise ValueError(f"daily counts of shape {counts.shape[1:]} for shares of shape {design.shape}")
     days = len(counts)
-    if days == 0 or counts.sum() == 0:
+    if counts.sum() == 0:
         return None
     closed = (design == 0)[None, :, :] & (counts > 0)
     if closed.any():

@@ -37,10 +37,10 @@ def sequential_pvalues(daily: Sequence, shares: Sequence, concentration: float =
     """
     counts = np.asarray(daily, dtype=float)
     design = np.asarray(shares, dtype=float)
-    if design.ndim == 1:
-        design, counts = design[None, :], counts[:, None, :]
     if counts.size == 0:
         return []
+    if design.ndim == 1:
+        design, counts = design[None, :], counts[:, None, :]
     if counts.ndim != 3 or counts.shape[1:] != design.shape:
         raise ValueError(f"daily counts of shape {counts.shape[1:]} for shares of shape {design.shape}")
     running = np.cumsum(counts, axis=0)  # day, version, arm
