@@ -163,8 +163,10 @@ def test_many_segments_at_once_equal_one_at_a_time():
     first = rng.binomial(n, 0.1)
     rows = np.column_stack([first, n - first])
     together = split_tests(rows, [0.1, 0.9])
-    assert together == [split_test(list(r), [0.1, 0.9]) for r in rows]
-    assert together[int(np.argmin(n))].test in ("exact-binomial", "none")
+    assert [together.at(i) for i in range(len(rows))] == [split_test(list(r), [0.1, 0.9]) for r in rows]
+    three_arms = split_tests(np.column_stack([rows, n // 10]), [0.1, 0.8, 0.1])
+    assert [three_arms.at(i) for i in range(len(rows))] == [split_test(list(r) + [m // 10], [0.1, 0.8, 0.1])
+                                                             for r, m in zip(rows, n)]
 
 
 def test_shapes_and_shares_are_checked():

@@ -5,6 +5,7 @@ import pytest
 from scipy import stats
 
 from audit.srm._per_unit import duplicate_logging_evidence, records_rank_test
+from tests.srm_simulations import balanced_records
 
 
 def histogram(per_arm: list[np.ndarray]) -> tuple[list[int], np.ndarray]:
@@ -69,18 +70,8 @@ def test_a_significant_but_immaterial_difference_is_not_named():
     assert evidence.rank_test.pvalue < 0.0005 and not evidence.found
 
 
-def simulate_balanced_logs(rng: np.random.Generator, units: int) -> tuple[list[int], np.ndarray, list[int]]:
-    """Two balanced arms whose units log Pareto(shape 1.3) records each (heavy-tailed, clustered)."""
-    arms = rng.integers(0, 2, units)
-    records = np.floor(rng.pareto(1.3, units) + 1).astype(np.int64)
-    values, inverse = np.unique(records, return_inverse=True)
-    table = np.zeros((2, len(values)), dtype=np.int64)
-    np.add.at(table, (arms, inverse), 1)
-    return values.tolist(), table, [int(records[arms == a].sum()) for a in (0, 1)]
-
-
 def test_heavy_tailed_healthy_logs_do_not_raise_the_cause_more_often_than_the_threshold():
-    # 400 balanced logs here (1,000+ in `make bench`). The rank test's rate at alpha = 0.05 lies within
+    # 400 balanced logs of 4,000 units. The rank test's rate at alpha = 0.05 lies within
     # the binomial 99.9 % range of alpha (scipy.stats.binom.ppf), so it is calibrated, not just quiet; the
     # cause (which also needs a material difference) fires no more often, at 0.05 and at the default
     # 0.0005; a chi-square on records, which treats clustered records as independent, fires in most runs.
@@ -88,7 +79,7 @@ def test_heavy_tailed_healthy_logs_do_not_raise_the_cause_more_often_than_the_th
     runs, alpha, default = 400, 0.05, 0.0005
     rank_crossed = fired = fired_at_default = records_chi_square = 0
     for _ in range(runs):
-        values, table, records = simulate_balanced_logs(rng, 4000)
+        values, table, records = balanced_records(rng, 4000)
         evidence = duplicate_logging_evidence(values, table, records, [0, 0], alpha)
         rank_crossed += evidence.rank_test.pvalue < alpha
         fired += evidence.found
