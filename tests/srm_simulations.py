@@ -21,7 +21,7 @@ def segment_sizes(rng: np.random.Generator, segments: int = SEGMENTS) -> np.ndar
 
 def audit_pvalues(rows: np.ndarray, shares: tuple[float, float]) -> np.ndarray:
     """The audit's segment p-values: `split_tests`, which picks the test per segment."""
-    return split_tests(rows, list(shares)).pvalue
+    return split_tests(rows, list(shares)).p_value
 
 
 def segment_alarms(shares: tuple[float, float], runs: int, threshold: float, seed: int,

@@ -7,25 +7,25 @@ import pytest
 from scipy import stats
 
 from audit.srm._exact import (
-    MONTE_CARLO_DRAWS, _exact_multinomial_pvalue, binomial_pvalues, compositions, split_test, split_tests,
+    MONTE_CARLO_DRAWS, _exact_multinomial_p_value, binomial_p_values, compositions, split_test, split_tests,
 )
 
 
-def test_binomial_pvalues_equal_scipy_binomtest():
+def test_binomial_p_values_equal_scipy_binomtest():
     # Reference: scipy.stats.binomtest(k, n, p).pvalue, two-sided (PyPI scipy).
     rng = np.random.default_rng(7)
     n = rng.integers(1, 5000, 600)
     p = rng.choice([0.5, 0.1, 0.01, 0.99, 0.25], 600)
     k = rng.binomial(n, p) + rng.integers(-3, 4, 600) * (rng.random(600) < 0.5)
     k = np.clip(k, 0, n)
-    ours = binomial_pvalues(k, n, p)
+    ours = binomial_p_values(k, n, p)
     reference = np.array([stats.binomtest(int(a), int(b), float(c)).pvalue for a, b, c in zip(k, n, p)])
     assert np.allclose(ours, reference, rtol=1e-9, atol=1e-300)
 
 
-def test_binomial_pvalue_of_a_scalar_is_a_scalar():
-    assert np.shape(binomial_pvalues(3, 10, 0.5)) == ()
-    assert float(binomial_pvalues(5, 10, 0.5)) == 1.0
+def test_binomial_p_value_of_a_scalar_is_a_scalar():
+    assert np.shape(binomial_p_values(3, 10, 0.5)) == ()
+    assert float(binomial_p_values(5, 10, 0.5)) == 1.0
 
 
 def test_small_skewed_segment_gets_the_exact_binomial():
@@ -33,8 +33,8 @@ def test_small_skewed_segment_gets_the_exact_binomial():
     # (the chi-square approximation says 1.2e-6, a false alarm after Holm).
     result = split_test([48, 4], [0.99, 0.01])
     assert result.test == "exact-binomial"
-    assert result.pvalue == pytest.approx(stats.binomtest(4, 52, 0.01).pvalue, rel=1e-12)
-    assert result.pvalue == pytest.approx(0.00185, abs=5e-5)
+    assert result.p_value == pytest.approx(stats.binomtest(4, 52, 0.01).pvalue, rel=1e-12)
+    assert result.p_value == pytest.approx(0.00185, abs=5e-5)
     assert stats.chisquare([48, 4], [51.48, 0.52]).pvalue < 1e-5  # what the old test said (scipy)
 
 
@@ -42,7 +42,7 @@ def test_textbook_mismatch_stays_a_mismatch_with_the_exact_test():
     # Kohavi, Tang & Xu, Trustworthy Online Controlled Experiments (2020), ch. 21:
     # 821,588 vs 815,482 units in a 50/50 test, p about 1.8e-6.
     result = split_test([821_588, 815_482], [0.5, 0.5])
-    assert result.pvalue == pytest.approx(1.8e-6, rel=0.05)
+    assert result.p_value == pytest.approx(1.8e-6, rel=0.05)
     assert result.statistic == pytest.approx(stats.chisquare([821_588, 815_482]).statistic, rel=1e-9)
 
 
@@ -53,7 +53,7 @@ def test_three_arms_with_large_counts_use_pearson_as_scipy_computes_it():
     reference = stats.chisquare(observed, np.array(shares) * sum(observed))
     assert result.test == "pearson-chi-square" and result.df == 2
     assert result.statistic == pytest.approx(reference.statistic, rel=1e-9)
-    assert result.pvalue == pytest.approx(reference.pvalue, rel=1e-9)
+    assert result.p_value == pytest.approx(reference.pvalue, rel=1e-9)
 
 
 def test_cochran_rule_switches_to_the_exact_multinomial_below_five_expected():
@@ -76,12 +76,12 @@ def test_exact_multinomial_equals_brute_force_over_scipy_pmf():
         reference = pmf[pmf <= seen * (1 + 1e-7)].sum()
         result = split_test(observed, shares)
         assert result.test == "exact-multinomial"
-        assert result.pvalue == pytest.approx(reference, rel=1e-9)
+        assert result.p_value == pytest.approx(reference, rel=1e-9)
 
 
 def test_exact_multinomial_with_two_arms_is_the_binomial_test():
     # Reference: scipy.stats.binomtest; two arms are the binomial case of the multinomial.
-    assert _exact_multinomial_pvalue(np.array([9, 3]), np.array([0.5, 0.5])) == pytest.approx(
+    assert _exact_multinomial_p_value(np.array([9, 3]), np.array([0.5, 0.5])) == pytest.approx(
         stats.binomtest(9, 12, 0.5).pvalue, rel=1e-12)
 
 
@@ -98,19 +98,19 @@ def test_monte_carlo_estimate_lies_within_its_stated_error():
     result = split_test(observed, shares)
     assert result.test == "monte-carlo-multinomial"
     assert result.mc_error is not None and 0 < result.mc_error < 0.01
-    exact = _exact_multinomial_pvalue(observed, shares)
-    assert abs(result.pvalue - exact) <= result.mc_error + 1 / MONTE_CARLO_DRAWS
-    assert split_test(observed, shares).pvalue == result.pvalue  # seeded: the same on every run
+    exact = _exact_multinomial_p_value(observed, shares)
+    assert abs(result.p_value - exact) <= result.mc_error + 1 / MONTE_CARLO_DRAWS
+    assert split_test(observed, shares).p_value == result.p_value  # seeded: the same on every run
 
 
 def test_units_in_a_closed_arm_are_a_mismatch_whatever_the_open_arms_say():
     # 900 of 6,900 units in an arm of weight 0: impossible under the design.
     result = split_test([3000, 3000, 900], [0.5, 0.5, 0.0])
-    assert result.pvalue == 0.0 and result.closed_units == 900
-    assert result.open_pvalue == pytest.approx(1.0)
-    assert split_test([3000, 3000, 0], [0.5, 0.5, 0.0]).pvalue == pytest.approx(1.0)
+    assert result.p_value == 0.0 and result.closed_units == 900
+    assert result.open_p_value == pytest.approx(1.0)
+    assert split_test([3000, 3000, 0], [0.5, 0.5, 0.0]).p_value == pytest.approx(1.0)
     two_arms = split_test([500, 1], [1.0, 0.0])
-    assert two_arms.pvalue == 0.0 and two_arms.closed_units == 1 and two_arms.test == "none"
+    assert two_arms.p_value == 0.0 and two_arms.closed_units == 1 and two_arms.test == "none"
 
 
 def test_a_healthy_ramp_is_balanced_against_the_mixture_and_not_against_the_latest_weights():
@@ -118,8 +118,8 @@ def test_a_healthy_ramp_is_balanced_against_the_mixture_and_not_against_the_late
     rng = np.random.default_rng(3)
     by_version = np.array([rng.multinomial(30_000, [0.9, 0.1]), rng.multinomial(30_000, [0.75, 0.25])])
     ramp = split_test(by_version, [[0.9, 0.1], [0.75, 0.25]])
-    assert ramp.test == "mixture-chi-square" and ramp.pvalue > 0.001
-    assert split_test(by_version.sum(axis=0), [0.75, 0.25]).pvalue < 1e-100
+    assert ramp.test == "mixture-chi-square" and ramp.p_value > 0.001
+    assert split_test(by_version.sum(axis=0), [0.75, 0.25]).p_value < 1e-100
 
 
 def test_poisson_binomial_equals_the_sum_over_joint_outcomes():
@@ -134,7 +134,7 @@ def test_poisson_binomial_equals_the_sum_over_joint_outcomes():
     result = split_test(observed, [[0.9, 0.1], [0.6, 0.4]])
     assert sum(per_version) == observed.sum() and first_shares[0] == 0.9
     assert result.test == "exact-poisson-binomial"
-    assert result.pvalue == pytest.approx(reference, rel=1e-9)
+    assert result.p_value == pytest.approx(reference, rel=1e-9)
 
 
 def test_mixture_statistic_follows_its_chi_square_under_the_design():
@@ -145,7 +145,7 @@ def test_mixture_statistic_follows_its_chi_square_under_the_design():
     pvalues, pooled = [], []
     for _ in range(600):
         counts = np.array([rng.multinomial(4000, shares[0]), rng.multinomial(4000, shares[1])])
-        pvalues.append(split_test(counts, shares).pvalue)
+        pvalues.append(split_test(counts, shares).p_value)
         pooled.append(stats.chisquare(counts.sum(axis=0), 4000 * shares.sum(axis=0)).pvalue)
     assert stats.kstest(pvalues, "uniform").pvalue > 0.001
     assert np.mean(np.array(pooled) < 0.05) < np.mean(np.array(pvalues) < 0.05)
@@ -154,7 +154,7 @@ def test_mixture_statistic_follows_its_chi_square_under_the_design():
 def test_three_arm_mixture_with_small_counts_runs_monte_carlo():
     result = split_test([[60, 2, 1], [30, 3, 4]], [[0.96, 0.02, 0.02], [0.9, 0.05, 0.05]])
     assert result.test == "monte-carlo-mixture" and result.mc_error is not None
-    assert 0.05 < result.pvalue < 1
+    assert 0.05 < result.p_value < 1
 
 
 def test_many_segments_at_once_equal_one_at_a_time():
@@ -178,4 +178,4 @@ def test_shapes_and_shares_are_checked():
 
 def test_no_units_is_nothing_to_test():
     result = split_test([0, 0, 0], [0.2, 0.3, 0.5])
-    assert result.test == "none" and result.pvalue == 1.0
+    assert result.test == "none" and result.p_value == 1.0

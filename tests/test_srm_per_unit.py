@@ -24,7 +24,7 @@ def test_rank_test_from_the_histogram_equals_scipy_kruskal_on_the_units():
         ours = records_rank_test(values, table)
         reference = stats.kruskal(*per_arm)
         assert ours.statistic == pytest.approx(reference.statistic, rel=1e-9)
-        assert ours.pvalue == pytest.approx(reference.pvalue, rel=1e-9, abs=1e-300)
+        assert ours.p_value == pytest.approx(reference.pvalue, rel=1e-9, abs=1e-300)
 
 
 def test_two_arms_equal_the_mann_whitney_test_without_continuity_correction():
@@ -33,7 +33,7 @@ def test_two_arms_equal_the_mann_whitney_test_without_continuity_correction():
     a, b = rng.geometric(0.3, 300), rng.geometric(0.25, 280)
     values, table = histogram([a, b])
     reference = stats.mannwhitneyu(a, b, method="asymptotic", use_continuity=False)
-    assert records_rank_test(values, table).pvalue == pytest.approx(reference.pvalue, rel=1e-9)
+    assert records_rank_test(values, table).p_value == pytest.approx(reference.pvalue, rel=1e-9)
 
 
 def test_values_given_in_any_order_give_the_same_test():
@@ -43,8 +43,8 @@ def test_values_given_in_any_order_give_the_same_test():
 
 
 def test_every_unit_with_the_same_count_is_nothing_to_compare():
-    assert records_rank_test([1], [[100], [90]]).pvalue == 1.0
-    assert records_rank_test([1, 2], [[100, 4], [0, 0]]).pvalue == 1.0
+    assert records_rank_test([1], [[100], [90]]).p_value == 1.0
+    assert records_rank_test([1, 2], [[100, 4], [0, 0]]).p_value == 1.0
 
 
 def test_an_arm_that_logs_twice_is_named():
@@ -67,7 +67,7 @@ def test_a_significant_but_immaterial_difference_is_not_named():
     # Many units, records per unit 1 % apart: significant, but under the 5 % materiality bar.
     values, table = [1, 2], [[800_000, 200_000], [792_000, 208_000]]
     evidence = duplicate_logging_evidence(values, table, [1_200_000, 1_208_000], [0, 0], 0.0005)
-    assert evidence.rank_test.pvalue < 0.0005 and not evidence.found
+    assert evidence.rank_test.p_value < 0.0005 and not evidence.found
 
 
 def test_heavy_tailed_healthy_logs_do_not_raise_the_cause_more_often_than_the_threshold():
@@ -81,7 +81,7 @@ def test_heavy_tailed_healthy_logs_do_not_raise_the_cause_more_often_than_the_th
     for _ in range(runs):
         values, table, records = balanced_records(rng, 4000)
         evidence = duplicate_logging_evidence(values, table, records, [0, 0], alpha)
-        rank_crossed += evidence.rank_test.pvalue < alpha
+        rank_crossed += evidence.rank_test.p_value < alpha
         fired += evidence.found
         fired_at_default += duplicate_logging_evidence(values, table, records, [0, 0], default).found
         records_chi_square += stats.chisquare(records).pvalue < alpha

@@ -33,7 +33,7 @@ Which test runs (the `test` field of the result):
   Clopper-Pearson upper bound lies above the estimate.
 
 An arm whose designed share is 0 (closed) cannot hold a unit: any unit there
-makes p = 0 (`closed_units` counts them); `open_pvalue` is the test on the
+makes p = 0 (`closed_units` counts them); `open_p_value` is the test on the
 open arms alone.
 """
 
@@ -58,16 +58,16 @@ class SplitTest(NamedTuple):
     """The test of one split against its design."""
 
     test: str  # which test ran, see the module docstring; "none" when fewer than two open arms hold units
-    pvalue: float  # 0 when a closed arm holds units
+    p_value: float  # 0 when a closed arm holds units
     statistic: float  # chi-square statistic of the open arms (Pearson's, or the mixture's), for reading
     df: int
     mc_error: float | None  # Monte Carlo only: the 99 % upper bound of the p-value minus the estimate
     closed_units: int  # units in arms the design closes (share 0)
-    open_pvalue: float  # the test on the open arms alone
+    open_p_value: float  # the test on the open arms alone
 
 
-def binomial_pvalues(successes, trials, share) -> np.ndarray:
-    """Two-sided exact binomial p-values, elementwise (as `scipy.stats.binomtest(k, n, p).pvalue`).
+def binomial_p_values(successes, trials, share) -> np.ndarray:
+    """Two-sided exact binomial p-values, elementwise (as `scipy.stats.binomtest(k, n, p).p_value`).
 
     The p-value sums the probabilities of every count no more likely than the
     one seen. The other tail's edge is found by bisection on the log pmf, for
@@ -136,18 +136,18 @@ class SplitTests(NamedTuple):
     """`SplitTest` for many splits at once, one array per field."""
 
     test: np.ndarray
-    pvalue: np.ndarray
+    p_value: np.ndarray
     statistic: np.ndarray
     df: np.ndarray
     mc_error: np.ndarray  # NaN where no Monte Carlo ran
     closed_units: np.ndarray
-    open_pvalue: np.ndarray
+    open_p_value: np.ndarray
 
     def at(self, index: int) -> SplitTest:
         error = float(self.mc_error[index])
-        return SplitTest(str(self.test[index]), float(self.pvalue[index]), float(self.statistic[index]),
+        return SplitTest(str(self.test[index]), float(self.p_value[index]), float(self.statistic[index]),
                          int(self.df[index]), None if math.isnan(error) else error, int(self.closed_units[index]),
-                         float(self.open_pvalue[index]))
+                         float(self.open_p_value[index]))
 
     @classmethod
     def of(cls, tests: Sequence[SplitTest]) -> SplitTests:
@@ -179,7 +179,7 @@ def _two_arm_tests(counts: np.ndarray, shares: np.ndarray) -> SplitTests:
     n = counts.sum(axis=1)
     first = counts[:, 0]
     tested = n > 0
-    pvalues = np.where(tested, binomial_pvalues(first, n, shares[0]), 1.0)
+    pvalues = np.where(tested, binomial_p_values(first, n, shares[0]), 1.0)
     with np.errstate(divide="ignore", invalid="ignore"):
         statistic = np.where(tested, (first - n * shares[0]) ** 2 / (n * shares[0] * shares[1]), 0.0)
     size = len(counts)
@@ -188,7 +188,7 @@ def _two_arm_tests(counts: np.ndarray, shares: np.ndarray) -> SplitTests:
 
 
 def _with_closed(test: SplitTest, closed_units: int) -> SplitTest:
-    return test._replace(pvalue=0.0, closed_units=closed_units) if closed_units else test
+    return test._replace(p_value=0.0, closed_units=closed_units) if closed_units else test
 
 
 def _mixture_test(counts: np.ndarray, shares: np.ndarray, seed: int) -> SplitTest:
@@ -207,20 +207,20 @@ def _mixture_test(counts: np.ndarray, shares: np.ndarray, seed: int) -> SplitTes
     per_version = counts.sum(axis=1)
     expected = per_version @ shares
     if one_design and counts.shape[1] == 2:
-        p = float(binomial_pvalues(counts[0, 0], per_version[0], shares[0, 0]))
+        p = float(binomial_p_values(counts[0, 0], per_version[0], shares[0, 0]))
         test = SplitTest("exact-binomial", p, statistic, df, None, 0, p)
     elif counts.shape[1] == 2 and per_version.sum() <= MIXTURE_EXACT_UNITS:
-        p = _poisson_binomial_pvalue(int(counts[:, 0].sum()), per_version, shares[:, 0])
+        p = _poisson_binomial_p_value(int(counts[:, 0].sum()), per_version, shares[:, 0])
         test = SplitTest("exact-poisson-binomial", p, statistic, df, None, 0, p)
     elif expected.min() >= COCHRAN_MINIMUM or counts.shape[1] == 2:
         p = float(stats.chi2.sf(statistic, df)) if df else 1.0
         test = SplitTest("pearson-chi-square" if one_design else "mixture-chi-square", p, statistic, df, None, 0, p)
     elif one_design and math.comb(int(per_version[0]) + counts.shape[1] - 1, counts.shape[1] - 1) \
             <= MULTINOMIAL_OUTCOMES:
-        p = _exact_multinomial_pvalue(counts[0], shares[0])
+        p = _exact_multinomial_p_value(counts[0], shares[0])
         test = SplitTest("exact-multinomial", p, statistic, df, None, 0, p)
     else:
-        p, error = _monte_carlo_pvalue(counts, shares, statistic, seed)
+        p, error = _monte_carlo_p_value(counts, shares, statistic, seed)
         name = "monte-carlo-multinomial" if one_design else "monte-carlo-mixture"
         test = SplitTest(name, p, statistic, df, error, 0, p)
     return _with_closed(test, closed_units)
@@ -249,17 +249,17 @@ def _covariance(per_version: np.ndarray, shares: np.ndarray) -> np.ndarray:
     return sum(n * (np.diag(s) - np.outer(s, s)) for n, s in zip(per_version, shares))
 
 
-def _likelihood_ordering_pvalue(pmf: np.ndarray, seen: float) -> float:
+def _likelihood_ordering_p_value(pmf: np.ndarray, seen: float) -> float:
     """Sum of the probabilities of the outcomes no more likely than the one seen."""
     return float(min(1.0, pmf[pmf <= seen * _TIES].sum()))
 
 
-def _poisson_binomial_pvalue(first_arm: int, per_version: np.ndarray, first_shares: np.ndarray) -> float:
+def _poisson_binomial_p_value(first_arm: int, per_version: np.ndarray, first_shares: np.ndarray) -> float:
     """Exact two-sided p-value of the first arm's count when version v contributes Binomial(n_v, s_v)."""
     pmf = np.ones(1)
     for n, s in zip(per_version, first_shares):
         pmf = np.convolve(pmf, stats.binom.pmf(np.arange(n + 1), n, s))
-    return _likelihood_ordering_pvalue(pmf, pmf[first_arm])
+    return _likelihood_ordering_p_value(pmf, pmf[first_arm])
 
 
 def compositions(total: int, parts: int) -> np.ndarray:
@@ -284,14 +284,14 @@ def _multinomial_logpmf(rows: np.ndarray, shares: np.ndarray) -> np.ndarray:
     return special.gammaln(n + 1) + (special.xlogy(rows, shares) - special.gammaln(rows + 1)).sum(axis=1)
 
 
-def _exact_multinomial_pvalue(observed: np.ndarray, shares: np.ndarray) -> float:
+def _exact_multinomial_p_value(observed: np.ndarray, shares: np.ndarray) -> float:
     outcomes = compositions(int(observed.sum()), len(observed))
     logpmf = _multinomial_logpmf(outcomes, shares)
     seen = _multinomial_logpmf(observed[None, :], shares)[0]
     return float(min(1.0, np.exp(logpmf[logpmf <= seen + math.log(_TIES)]).sum()))
 
 
-def _monte_carlo_pvalue(counts: np.ndarray, shares: np.ndarray, statistic: float, seed: int) -> tuple[float, float]:
+def _monte_carlo_p_value(counts: np.ndarray, shares: np.ndarray, statistic: float, seed: int) -> tuple[float, float]:
     """Share of seeded draws from the design at least as extreme as the split seen, and its error bound.
 
     One design: draws ordered by their probability (estimating the exact

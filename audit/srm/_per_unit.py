@@ -25,7 +25,7 @@ class RankTest(NamedTuple):
 
     statistic: float
     df: int
-    pvalue: float
+    p_value: float
     mean_ranks: tuple[float, ...]  # per arm; the arm whose units log more records ranks higher
 
 
@@ -88,7 +88,7 @@ def duplicate_logging_evidence(values: Sequence[int], table: Sequence[Sequence[i
     if repeat_shares[heaviest_repeats] >= REPEAT_SHARE:
         return DuplicateEvidence(True, heaviest_repeats, "exact_repeats", test, per_unit, repeat_shares)
     logged = [i for i, u in enumerate(units) if u]
-    if test.pvalue < threshold and len(logged) >= 2:
+    if test.p_value < threshold and len(logged) >= 2:
         heavy = max(logged, key=lambda i: test.mean_ranks[i])
         light = min(logged, key=lambda i: per_unit[i])
         if per_unit[heavy] > MATERIAL_RATIO * per_unit[light]:

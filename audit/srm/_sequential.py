@@ -29,7 +29,7 @@ from scipy import special
 DEFAULT_CONCENTRATION = 1000.0  # prior share SD about 1.6 points at 50/50: tuned to the small imbalances SRM is about
 
 
-def sequential_pvalues(daily: Sequence, shares: Sequence, concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
+def sequential_p_values(daily: Sequence, shares: Sequence, concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
     """Anytime-valid p-values after each day, from the counts of units new that day.
 
     `daily[day][arm]` with `shares[arm]` for one design, or

@@ -12,9 +12,9 @@ import numpy as np
 from scipy import stats
 
 from audit._stats import DEFAULT_THRESHOLD
-from audit.srm._exact import COCHRAN_MINIMUM, binomial_pvalues, split_tests
+from audit.srm._exact import COCHRAN_MINIMUM, binomial_p_values, split_tests
 from audit.srm._onset import onset
-from audit.srm._sequential import sequential_pvalues
+from audit.srm._sequential import sequential_p_values
 from tests.srm_simulations import duplicate_cause_fires, segment_alarms
 
 SEGMENT_RUNS = 20_000
@@ -29,7 +29,7 @@ def _cochran_only(rows: np.ndarray, shares: tuple[float, float]) -> np.ndarray:
     large = np.minimum(n * shares[0], n * shares[1]) >= COCHRAN_MINIMUM
     with np.errstate(divide="ignore", invalid="ignore"):
         chi2 = stats.chi2.sf((rows[:, 0] - n * shares[0]) ** 2 / (n * shares[0] * shares[1]), 1)
-    return np.where(large, chi2, np.where(n > 0, binomial_pvalues(rows[:, 0], n, shares[0]), 1.0))
+    return np.where(large, chi2, np.where(n > 0, binomial_p_values(rows[:, 0], n, shares[0]), 1.0))
 
 
 def _bound(runs: int, rate: float) -> float:
@@ -83,7 +83,7 @@ def _sequential() -> list[str]:
         daily = np.zeros((30, 2, 2), dtype=np.int64)
         daily[:10, 0] = rng.multinomial(400, shares[0], size=10)
         daily[10:, 1] = rng.multinomial(400, shares[1], size=20)
-        crossed += min(sequential_pvalues(daily, shares)) < alpha
+        crossed += min(sequential_p_values(daily, shares)) < alpha
     return ["", f"## Anytime-valid test over a healthy ramp, 30 daily looks ({runs:,} runs)", "",
             f"- ever below {alpha}: {crossed / runs:.2%} (Ville's bound {alpha:.0%})"]
 
