@@ -56,12 +56,33 @@ def test_three_arms_with_large_counts_use_pearson_as_scipy_computes_it():
     assert result.p_value == pytest.approx(reference.pvalue, rel=1e-9)
 
 
-def test_cochran_rule_switches_to_the_exact_multinomial_below_five_expected():
-    # Cochran (1954): the chi-square approximation needs every expected count >= 5 (common practice).
-    at_five = split_test([123, 122, 5], [0.49, 0.49, 0.02])  # 250 units: 5.0 expected in the last arm
-    below_five = split_test([122, 122, 5], [0.49, 0.49, 0.02])  # 249 units: 4.98 expected
-    assert at_five.test == "pearson-chi-square"
-    assert below_five.test == "exact-multinomial"
+def test_exact_tests_run_wherever_affordable_and_the_chi_square_only_from_large_counts():
+    small = split_test([122, 122, 5], [0.49, 0.49, 0.02])  # 249 units: outcomes few enough to enumerate
+    middle = split_test([980, 11, 9], [0.98, 0.01, 0.01])  # 1,000 units: too many outcomes, 10 expected
+    large = split_test([98_000, 1_010, 990], [0.98, 0.01, 0.01])  # 1,000 expected in the small arms
+    assert (small.test, middle.test, large.test) == ("exact-multinomial", "exact-binomial-per-arm",
+                                                      "pearson-chi-square")
+
+
+def test_per_arm_test_is_bonferroni_over_scipy_binomtest():
+    # Reference: scipy.stats.binomtest per arm; Bonferroni multiplies the smallest p-value by the arms.
+    observed, shares = [962, 30, 8], [0.98, 0.01, 0.01]
+    reference = min(stats.binomtest(k, 1000, s).pvalue for k, s in zip(observed, shares)) * 3
+    assert split_test(observed, shares).p_value == pytest.approx(reference, rel=1e-9)
+
+
+def test_chi_square_would_exceed_the_holm_level_where_the_exact_test_stays_within_it():
+    # Every outcome (246,051) of a clean 98/1/1 segment of 700 units, weighted by scipy.stats.multinomial's
+    # pmf: at the per-test level of Holm over 200 segments (0.0005 / 200), Pearson's chi-square (every
+    # expected count >= 5, so Cochran's rule allows it) rejects about 18 times too often; the test that
+    # runs stays within the level.
+    shares, level = np.array([0.98, 0.01, 0.01]), 0.0005 / 200
+    outcomes = compositions(700, 3)
+    pmf = stats.multinomial.pmf(outcomes, 700, shares)
+    chi_square = stats.chi2.sf(((outcomes - 700 * shares) ** 2 / (700 * shares)).sum(axis=1), 2)
+    ours = split_tests(outcomes, shares).p_value
+    assert pmf[chi_square < level].sum() > 10 * level
+    assert pmf[ours < level].sum() <= level
 
 
 def test_exact_multinomial_equals_brute_force_over_scipy_pmf():
@@ -92,14 +113,25 @@ def test_compositions_count_every_outcome_once():
 
 
 def test_monte_carlo_estimate_lies_within_its_stated_error():
-    # Four arms, 200 units: 1.4 million outcomes, too many to enumerate quickly; expected 2 in the smallest arm.
-    shares = np.array([0.59, 0.2, 0.2, 0.01])
-    observed = np.array([110, 40, 44, 6])
+    # A three-arm ramp with 30,000 units and about 4.5 expected in each small arm: beyond the exact tests.
+    # Reference: an independent simulation, 400,000 draws from another seed, with the statistic written the
+    # textbook way: drop one arm and invert the (nonsingular) covariance of the other two (from memory).
+    shares = np.array([[0.9998, 0.0001, 0.0001], [0.9996, 0.0002, 0.0002]])
+    observed = np.array([[14_994, 4, 2], [14_990, 2, 8]])
     result = split_test(observed, shares)
-    assert result.test == "monte-carlo-multinomial"
+    assert result.test == "monte-carlo-mixture"
     assert result.mc_error is not None and 0 < result.mc_error < 0.01
-    exact = _exact_multinomial_p_value(observed, shares)
-    assert abs(result.p_value - exact) <= result.mc_error + 1 / MONTE_CARLO_DRAWS
+    small = shares[:, 1:]
+    expected = 15_000 * small.sum(axis=0)
+    covariance = sum(15_000 * (np.diag(s) - np.outer(s, s)) for s in small)
+    inverse = np.linalg.inv(covariance)
+    seen = observed.sum(axis=0)[1:] - expected
+    assert result.statistic == pytest.approx(seen @ inverse @ seen, rel=1e-6)
+    rng = np.random.default_rng(99)
+    draws = sum(rng.multinomial(15_000, s, size=400_000)[:, 1:] for s in shares) - expected
+    simulated = np.einsum("ij,jk,ik->i", draws, inverse, draws)
+    reference = (simulated >= (seen @ inverse @ seen) * (1 - 1e-9)).mean()
+    assert abs(result.p_value - reference) <= result.mc_error + 3 * np.sqrt(reference * (1 - reference) / 400_000)
     assert split_test(observed, shares).p_value == result.p_value  # seeded: the same on every run
 
 
@@ -143,7 +175,7 @@ def test_mixture_statistic_follows_its_chi_square_under_the_design():
     rng = np.random.default_rng(12)
     shares = np.array([[0.8, 0.1, 0.1], [0.4, 0.3, 0.3]])
     pvalues, pooled = [], []
-    for _ in range(600):
+    for _ in range(400):
         counts = np.array([rng.multinomial(4000, shares[0]), rng.multinomial(4000, shares[1])])
         pvalues.append(split_test(counts, shares).p_value)
         pooled.append(stats.chisquare(counts.sum(axis=0), 4000 * shares.sum(axis=0)).pvalue)
@@ -151,10 +183,22 @@ def test_mixture_statistic_follows_its_chi_square_under_the_design():
     assert np.mean(np.array(pooled) < 0.05) < np.mean(np.array(pvalues) < 0.05)
 
 
-def test_three_arm_mixture_with_small_counts_runs_monte_carlo():
-    result = split_test([[60, 2, 1], [30, 3, 4]], [[0.96, 0.02, 0.02], [0.9, 0.05, 0.05]])
-    assert result.test == "monte-carlo-mixture" and result.mc_error is not None
-    assert 0.05 < result.p_value < 1
+def test_three_arm_ramp_with_few_units_runs_the_exact_test_per_arm():
+    # Reference: each arm's count over the joint outcomes of its two binomials (scipy.stats.binom.pmf),
+    # likelihood-ordered, Bonferroni over the three arms.
+    observed = np.array([[60, 2, 1], [30, 3, 4]])
+    shares = np.array([[0.96, 0.02, 0.02], [0.9, 0.05, 0.05]])
+    per_arm = []
+    for arm in range(3):
+        joint = np.zeros(63 + 37 + 1)
+        outer = np.outer(stats.binom.pmf(np.arange(64), 63, shares[0, arm]),
+                         stats.binom.pmf(np.arange(38), 37, shares[1, arm]))
+        np.add.at(joint, np.add.outer(np.arange(64), np.arange(38)), outer)
+        seen = joint[int(observed[:, arm].sum())]
+        per_arm.append(joint[joint <= seen * (1 + 1e-7)].sum())
+    result = split_test(observed, shares)
+    assert result.test == "exact-poisson-binomial-per-arm"
+    assert result.p_value == pytest.approx(min(1.0, 3 * min(per_arm)), rel=1e-9)
 
 
 def test_many_segments_at_once_equal_one_at_a_time():

@@ -7,30 +7,37 @@ mixture when the weights were ramped; a plain multinomial with one version).
 `split_test` picks the test and returns a small named result, scipy.stats
 style; `split_tests` runs it over many segments at once.
 
-Which test runs (the `test` field of the result):
+Which test runs (the `test` field of the result). Cochran's rule (Cochran
+1954: chi-square when every expected count is at least 5) is about the 5 %
+level; after Holm over 200 segments each test runs near 0.0005 / 200 =
+2.5e-6, where the chi-square tail is far too thin when an arm expects few
+units: it rejects a clean 99/1 segment of 1,000 units with probability
+4.2e-5, a clean 98/1/1 one with 3.9e-5, not 2.5e-6 (exact sizes from the
+binomial and multinomial pmfs). From 1,000 expected units in every arm the
+excess is about 5 % (LARGE_EXPECTED). So exact tests run wherever they are
+affordable, the chi-square only where it is accurate:
 
-- ``exact-binomial``: two arms, one design. Exact for every count (the
-  two-sided likelihood-ordering p-value of ``scipy.stats.binomtest``,
-  computed for many segments at once). Cochran's rule (Cochran 1954: every
-  expected count at least 5) is about the 5 % level; after Holm over 200
-  segments each test runs at 0.0005 / 200, where the chi-square tail is far
-  too thin for small arms (a 99/1 segment of 1,000 units: chi-square rejects
-  with probability 4.2e-5 instead of 2.5e-6, computed against the binomial
-  pmf). With two arms the exact test is cheap, so it always runs.
-- ``exact-poisson-binomial``: two arms, several design versions, up to
-  MIXTURE_EXACT_UNITS units: the exact distribution of a sum of binomials.
-- ``pearson-chi-square`` / ``mixture-chi-square``: three or more arms with
-  every expected count >= 5 (Cochran's rule), or two arms over several
-  versions with many units. With several versions the statistic uses the
+- ``exact-binomial``: two arms, one design, any count: the two-sided
+  likelihood-ordering p-value of ``scipy.stats.binomtest``, computed for
+  many segments at once.
+- ``exact-multinomial``: three or more arms, one design, few enough outcomes
+  to enumerate (MULTINOMIAL_OUTCOMES): the sum of the probabilities of every
+  outcome no more likely than the one seen.
+- ``pearson-chi-square`` / ``mixture-chi-square``: every expected count at
+  least LARGE_EXPECTED. With several versions the statistic uses the
   mixture's covariance (sum over versions of n_v (diag(s_v) - s_v s_v')),
-  which is exact to first order; with one version it is Pearson's statistic.
-- ``exact-multinomial``: three or more arms, one design, some expected count
-  below 5, few enough outcomes to enumerate (MULTINOMIAL_OUTCOMES): the sum
-  of the probabilities of every outcome no more likely than the one seen.
-- ``monte-carlo-multinomial`` / ``monte-carlo-mixture``: the same p-value
-  (for a mixture: ordered by the chi-square statistic) estimated from
-  MONTE_CARLO_DRAWS seeded draws; `mc_error` is how far the 99 %
-  Clopper-Pearson upper bound lies above the estimate.
+  exact to first order; with one version it is Pearson's statistic.
+- ``exact-binomial-per-arm``: three or more arms, one design, otherwise:
+  each arm's count against its share with the exact binomial test,
+  Bonferroni over the arms (k times the smallest p-value).
+- ``exact-poisson-binomial`` (two arms) / ``exact-poisson-binomial-per-arm``
+  (more, Bonferroni): several design versions, up to MIXTURE_EXACT_UNITS
+  units: an arm's count is then a sum of binomials, one per version.
+- Several versions beyond that: ``mixture-chi-square`` when every expected
+  count is at least 5, else ``monte-carlo-mixture``: the share of
+  MONTE_CARLO_DRAWS seeded draws from the design whose chi-square is at
+  least the one seen; `mc_error` is how far the 99 % Clopper-Pearson upper
+  bound lies above that estimate.
 
 An arm whose designed share is 0 (closed) cannot hold a unit: any unit there
 makes p = 0 (`closed_units` counts them); `open_p_value` is the test on the
@@ -46,8 +53,9 @@ import numpy as np
 from scipy import special, stats
 
 COCHRAN_MINIMUM = 5.0  # Cochran (1954): chi-square when every expected count is at least 5
+LARGE_EXPECTED = 1_000.0  # the chi-square tail is within about 5 % of exact at 2.5e-6 from here (measured, see above)
 MULTINOMIAL_OUTCOMES = 200_000  # enumerate the exact multinomial when it has at most this many outcomes
-MIXTURE_EXACT_UNITS = 20_000  # exact Poisson-binomial up to this many units; the mixture chi-square above
+MIXTURE_EXACT_UNITS = 20_000  # exact Poisson-binomial up to this many units
 MONTE_CARLO_DRAWS = 100_000
 MONTE_CARLO_SEED = 20261202  # fixed: the same counts give the same p-value on every run
 MONTE_CARLO_CONFIDENCE = 0.99
@@ -163,28 +171,43 @@ def split_tests(observed: Sequence, shares: Sequence, *, seed: int = MONTE_CARLO
     """`split_test` over many splits (segments) that share a design: observed[segment][(version,)] arm."""
     counts = np.asarray(observed, dtype=np.int64)
     design = np.asarray(shares, dtype=float)
+    if counts.size == 0:
+        return SplitTests.of([])
     if design.ndim == 1 and counts.ndim == 2:
         design, counts = design[None, :], counts[:, None, :]
     if counts.ndim != 3 or counts.shape[1:] != design.shape:
         raise ValueError(f"counts of shape {counts.shape[1:]} for shares of shape {design.shape}")
     if np.any(design < 0) or not np.allclose(design.sum(axis=1), 1.0):
         raise ValueError(f"each version's shares must be non-negative and sum to 1, found {design.tolist()}")
-    if design.shape == (1, 2) and design.min() > 0:
-        return _two_arm_tests(counts[:, 0, :], design[0])
+    if len(design) == 1 and design.min() > 0:
+        return _one_design_tests(counts[:, 0, :], design[0])
     return SplitTests.of([_mixture_test(c, design, seed) for c in counts])
 
 
-def _two_arm_tests(counts: np.ndarray, shares: np.ndarray) -> SplitTests:
-    """One design, two open arms: exact binomial for every segment at once."""
+def _one_design_tests(counts: np.ndarray, shares: np.ndarray) -> SplitTests:
+    """One design, every arm open: the test of each split chosen and run for all splits at once."""
+    size, arms = counts.shape
     n = counts.sum(axis=1)
-    first = counts[:, 0]
+    expected = n[:, None] * shares[None, :]
     tested = n > 0
-    pvalues = np.where(tested, binomial_p_values(first, n, shares[0]), 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        statistic = np.where(tested, (first - n * shares[0]) ** 2 / (n * shares[0] * shares[1]), 0.0)
-    size = len(counts)
-    return SplitTests(np.where(tested, "exact-binomial", "none").astype(object), pvalues, statistic,
-                      tested.astype(np.int64), np.full(size, math.nan), np.zeros(size, dtype=np.int64), pvalues)
+    statistic = np.where(tested, ((counts - expected) ** 2 / np.where(tested[:, None], expected, 1.0)).sum(axis=1), 0.0)
+    names = np.full(size, "exact-binomial" if arms == 2 else "exact-binomial-per-arm", dtype=object)
+    # Each arm's count against its share, exactly; with three or more arms, Bonferroni over them (with two,
+    # both arms' tests are one test).
+    per_arm = binomial_p_values(counts, n[:, None], shares[None, :]).min(axis=1) * (arms if arms > 2 else 1)
+    p_values = np.minimum(1.0, per_arm)
+    if arms > 2:
+        large = expected.min(axis=1) >= LARGE_EXPECTED
+        names[large] = "pearson-chi-square"
+        p_values[large] = stats.chi2.sf(statistic[large], arms - 1)
+        outcomes = {total: math.comb(total + arms - 1, arms - 1) for total in np.unique(n).tolist()}
+        for row in np.flatnonzero([outcomes[total] <= MULTINOMIAL_OUTCOMES for total in n.tolist()] & tested):
+            names[row] = "exact-multinomial"
+            p_values[row] = _exact_multinomial_p_value(counts[row], shares)
+    names[~tested] = "none"
+    p_values[~tested] = 1.0
+    return SplitTests(names, p_values, statistic, np.where(tested, arms - 1, 0), np.full(size, math.nan),
+                      np.zeros(size, dtype=np.int64), p_values)
 
 
 def _with_closed(test: SplitTest, closed_units: int) -> SplitTest:
@@ -204,25 +227,26 @@ def _mixture_test(counts: np.ndarray, shares: np.ndarray, seed: int) -> SplitTes
         return _with_closed(SplitTest("none", 1.0, 0.0, 0, None, 0, 1.0), closed_units)
     statistic, df = _chi_square(counts, shares)
     one_design = len(shares) == 1
+    arms = counts.shape[1]
     per_version = counts.sum(axis=1)
     expected = per_version @ shares
-    if one_design and counts.shape[1] == 2:
-        p = float(binomial_p_values(counts[0, 0], per_version[0], shares[0, 0]))
-        test = SplitTest("exact-binomial", p, statistic, df, None, 0, p)
-    elif counts.shape[1] == 2 and per_version.sum() <= MIXTURE_EXACT_UNITS:
-        p = _poisson_binomial_p_value(int(counts[:, 0].sum()), per_version, shares[:, 0])
-        test = SplitTest("exact-poisson-binomial", p, statistic, df, None, 0, p)
-    elif expected.min() >= COCHRAN_MINIMUM or counts.shape[1] == 2:
-        p = float(stats.chi2.sf(statistic, df)) if df else 1.0
-        test = SplitTest("pearson-chi-square" if one_design else "mixture-chi-square", p, statistic, df, None, 0, p)
-    elif one_design and math.comb(int(per_version[0]) + counts.shape[1] - 1, counts.shape[1] - 1) \
-            <= MULTINOMIAL_OUTCOMES:
-        p = _exact_multinomial_p_value(counts[0], shares[0])
-        test = SplitTest("exact-multinomial", p, statistic, df, None, 0, p)
+    if math.isinf(statistic):
+        test = SplitTest("mixture-chi-square", 0.0, statistic, df, None, 0, 0.0)
+    elif one_design:
+        test = _one_design_tests(counts, shares[0]).at(0)
+    elif expected.min() >= LARGE_EXPECTED or (per_version.sum() > MIXTURE_EXACT_UNITS
+                                              and expected.min() >= COCHRAN_MINIMUM):
+        p = float(stats.chi2.sf(statistic, df))
+        test = SplitTest("mixture-chi-square", p, statistic, df, None, 0, p)
+    elif per_version.sum() <= MIXTURE_EXACT_UNITS:
+        # Each arm's count against the sum of its binomials, exactly; Bonferroni over three or more arms.
+        arm_p = min(_poisson_binomial_p_value(int(counts[:, arm].sum()), per_version, shares[:, arm])
+                    for arm in range(arms))
+        p = min(1.0, arm_p * (arms if arms > 2 else 1))
+        test = SplitTest("exact-poisson-binomial" + ("-per-arm" if arms > 2 else ""), p, statistic, df, None, 0, p)
     else:
         p, error = _monte_carlo_p_value(counts, shares, statistic, seed)
-        name = "monte-carlo-multinomial" if one_design else "monte-carlo-mixture"
-        test = SplitTest(name, p, statistic, df, error, 0, p)
+        test = SplitTest("monte-carlo-mixture", p, statistic, df, error, 0, p)
     return _with_closed(test, closed_units)
 
 
@@ -231,17 +255,19 @@ def _chi_square(counts: np.ndarray, shares: np.ndarray) -> tuple[float, int]:
 
     The covariance of the arm totals is the sum over versions of
     n_v (diag(s_v) - s_v s_v'); with one version its generalised inverse gives
-    Pearson's statistic exactly. A deviation the design cannot produce at all
-    (outside the covariance's range) has an infinite statistic.
+    Pearson's statistic exactly. Its eigen-decomposition gives that inverse;
+    eigenvalues below 1e-9 of the largest are zero (the all-ones direction,
+    along which the deviations always sum to 0). A deviation along such a
+    direction is one the design cannot produce: an infinite statistic.
     """
     per_version = counts.sum(axis=1)
     deviation = counts.sum(axis=0) - per_version @ shares
-    covariance = _covariance(per_version, shares)
-    inverse = np.linalg.pinv(covariance, hermitian=True)
-    rank = int(np.linalg.matrix_rank(covariance, hermitian=True))
-    if np.abs(covariance @ inverse @ deviation - deviation).max() > 1e-6 * max(1.0, np.abs(deviation).max()):
-        return math.inf, rank
-    return float(max(deviation @ inverse @ deviation, 0.0)), rank
+    eigenvalues, eigenvectors = np.linalg.eigh(_covariance(per_version, shares))
+    kept = eigenvalues > 1e-9 * eigenvalues.max()
+    components = eigenvectors.T @ deviation
+    if np.abs(components[~kept]).max(initial=0.0) > 1e-6 * max(1.0, np.abs(deviation).max()):
+        return math.inf, int(kept.sum())
+    return float((components[kept] ** 2 / eigenvalues[kept]).sum()), int(kept.sum())
 
 
 def _covariance(per_version: np.ndarray, shares: np.ndarray) -> np.ndarray:
@@ -254,12 +280,12 @@ def _likelihood_ordering_p_value(pmf: np.ndarray, seen: float) -> float:
     return float(min(1.0, pmf[pmf <= seen * _TIES].sum()))
 
 
-def _poisson_binomial_p_value(first_arm: int, per_version: np.ndarray, first_shares: np.ndarray) -> float:
-    """Exact two-sided p-value of the first arm's count when version v contributes Binomial(n_v, s_v)."""
+def _poisson_binomial_p_value(count: int, per_version: np.ndarray, arm_shares: np.ndarray) -> float:
+    """Exact two-sided p-value of an arm's count when version v contributes Binomial(n_v, s_v) to it."""
     pmf = np.ones(1)
-    for n, s in zip(per_version, first_shares):
+    for n, s in zip(per_version, arm_shares):
         pmf = np.convolve(pmf, stats.binom.pmf(np.arange(n + 1), n, s))
-    return _likelihood_ordering_p_value(pmf, pmf[first_arm])
+    return _likelihood_ordering_p_value(pmf, pmf[count])
 
 
 def compositions(total: int, parts: int) -> np.ndarray:
@@ -292,23 +318,15 @@ def _exact_multinomial_p_value(observed: np.ndarray, shares: np.ndarray) -> floa
 
 
 def _monte_carlo_p_value(counts: np.ndarray, shares: np.ndarray, statistic: float, seed: int) -> tuple[float, float]:
-    """Share of seeded draws from the design at least as extreme as the split seen, and its error bound.
-
-    One design: draws ordered by their probability (estimating the exact
-    multinomial p-value). Several versions: ordered by the chi-square
-    statistic, the mixture's probability having no closed form.
-    """
+    """Share of seeded draws from the mixture whose chi-square is at least the one seen, and its error bound."""
     rng = np.random.default_rng(seed)
     per_version = counts.sum(axis=1)
     draws = sum(rng.multinomial(n, s, size=MONTE_CARLO_DRAWS) for n, s in zip(per_version, shares))
-    if len(shares) == 1:
-        seen = _multinomial_logpmf(counts, shares[0])[0]
-        extreme = int((_multinomial_logpmf(draws, shares[0]) <= seen + math.log(_TIES)).sum())
-    else:
-        deviations = draws - per_version @ shares
-        inverse = np.linalg.pinv(_covariance(per_version, shares), hermitian=True)
-        simulated = np.einsum("ij,jk,ik->i", deviations, inverse, deviations)
-        extreme = int((simulated >= statistic * (1 - 1e-9)).sum())
+    deviations = draws - per_version @ shares
+    eigenvalues, eigenvectors = np.linalg.eigh(_covariance(per_version, shares))
+    kept = eigenvalues > 1e-9 * eigenvalues.max()
+    simulated = ((deviations @ eigenvectors[:, kept]) ** 2 / eigenvalues[kept]).sum(axis=1)
+    extreme = int((simulated >= statistic * (1 - 1e-9)).sum())
     # (1 + hits) / (1 + draws) counts the split seen as one of the draws, so the estimate is a valid p-value.
     estimate = (1 + extreme) / (1 + MONTE_CARLO_DRAWS)
     upper = float(stats.beta.ppf(MONTE_CARLO_CONFIDENCE, extreme + 1, MONTE_CARLO_DRAWS - extreme))
