@@ -4,13 +4,18 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench clean
+.PHONY: demo test lint bench clean
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install -q --upgrade pip
 	$(BIN)/python -m pip install -q -e '.[test]'
 	touch $(STAMP)
+
+# Lint (ruff) and types (mypy) of both packages; their settings are in pyproject.toml.
+lint: $(STAMP)
+	$(BIN)/ruff check bucketing audit tests
+	$(BIN)/python -m mypy
 
 demo: $(STAMP)
 	$(BIN)/sortition demo --out demo-output

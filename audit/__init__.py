@@ -1,5 +1,56 @@
 """sortition's tool side: config checks for CI and sample-ratio-mismatch audits of exposure logs.
 
-The command line (`sortition ...`) lives in `audit._cli`; the analysis code
-is importable for notebooks and other tools.
+    from audit import audit_logs
+
+    result = audit_logs("logs/", config="configs/", segments=["country", "platform"])
+    for experiment in result.results:
+        print(experiment.experiment, experiment.srm, experiment.p_value)
+
+The command line (`sortition ...`) lives in `audit.cli`. Subpackages, one
+direction of imports: `cli` -> `render` -> `checks`, `srm` -> `bucketing`.
 """
+
+from importlib import metadata
+from typing import TYPE_CHECKING
+
+from bucketing import SortitionError
+
+from ._errors import AuditError, LogError, MissingFieldError
+
+try:
+    __version__ = metadata.version("sortition")
+except metadata.PackageNotFoundError:  # running from a source tree that was never installed
+    __version__ = "0+unknown"
+
+_LAZY = {  # public names whose modules load NumPy, SciPy or DuckDB: imported on first use
+    "audit_logs": "audit.srm", "AuditResult": "audit.srm", "ExperimentResult": "audit.srm",
+    "ArmResult": "audit.srm", "SegmentResult": "audit.srm", "DayResult": "audit.srm", "Localisation": "audit.srm",
+    "Cause": "audit.srm", "Malformed": "audit.srm", "UnknownRecords": "audit.srm",
+    "check_config": "audit.checks", "CheckResult": "audit.checks", "diff_configs": "audit.checks",
+    "ConfigDiff": "audit.checks", "ExperimentChange": "audit.checks", "layout_of": "audit.checks",
+    "Layout": "audit.checks", "LayerLayout": "audit.checks",
+}
+
+if TYPE_CHECKING:  # the same names, for type checkers
+    from .checks import (
+        CheckResult, ConfigDiff, ExperimentChange, LayerLayout, Layout, check_config, diff_configs, layout_of,
+    )
+    from .srm import (
+        ArmResult, AuditResult, Cause, DayResult, ExperimentResult, Localisation, Malformed, SegmentResult,
+        UnknownRecords, audit_logs,
+    )
+
+__all__ = [
+    "__version__", "SortitionError", "AuditError", "LogError", "MissingFieldError",
+    "audit_logs", "AuditResult", "ExperimentResult", "ArmResult", "SegmentResult", "DayResult", "Localisation", "Cause",
+    "Malformed", "UnknownRecords",
+    "check_config", "CheckResult", "diff_configs", "ConfigDiff", "ExperimentChange", "layout_of", "Layout", "LayerLayout",
+]
+
+
+def __getattr__(name: str) -> object:
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'audit' has no attribute {name!r}")

@@ -5,21 +5,42 @@
     assigner = Assigner("configs/", sink=JsonLinesSink("exposures.jsonl"))
     got = assigner.assign({"learner": "L-1042"}, {"country": "NL", "app_version": "7.4.0"})
     minutes = got.param("lesson_minutes", 10)
+
+Everything public is named in `__all__`; modules whose names start with an
+underscore are private and may change without notice.
 """
 
 from ._assigner import Assigner, Assignment, LayerAssignment
-from ._errors import ConfigError, Problem, SortitionError
+from ._config import Config, format_path
+from ._errors import ConfigError, Location, Problem, SortitionError
+from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, HeldOut, HoldoutCheck, NoExperiment,
+                       NotEligible, NotRunning, Step)
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
-from ._loader import Config, load_config, parse_config
+from ._loader import CONFIG_SUFFIXES, load_config, parse_config
+from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
+from ._rules import RULES
+from ._watch import ConfigWatcher, ReloadAttempt
 
 __all__ = [
     "Assigner",
     "Assignment",
     "LayerAssignment",
     "Config",
+    "ConfigFile",
+    "Layer",
+    "Experiment",
+    "Arm",
+    "Holdout",
+    "Waiver",
     "load_config",
     "parse_config",
+    "config_schema",
+    "CONFIG_SUFFIXES",
+    "RULES",
+    "experiment_salt",
+    "hundredths",
+    "format_path",
     "bucket_of",
     "BUCKETS",
     "ExposureSink",
@@ -28,7 +49,21 @@ __all__ = [
     "LoggingSink",
     "CallbackSink",
     "RECORD_FIELDS",
+    "ConfigWatcher",
+    "ReloadAttempt",
+    "Explanation",
+    "HoldoutCheck",
+    "Step",
+    "Forced",
+    "HeldOut",
+    "NoExperiment",
+    "NotRunning",
+    "BeforeStart",
+    "AfterEnd",
+    "NotEligible",
+    "Assigned",
     "ConfigError",
+    "Location",
     "Problem",
     "SortitionError",
 ]

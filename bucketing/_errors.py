@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Union
+
+Location = tuple[Union[str, int], ...]
 
 
 class SortitionError(Exception):
@@ -11,7 +14,12 @@ class SortitionError(Exception):
 
 @dataclass(frozen=True)
 class Problem:
-    """One thing wrong with a config, located in its source file."""
+    """One thing wrong with a config, located in its source file.
+
+    `loc` is the field's place in that file as keys and list indexes, such as
+    ("layers", 0, "experiments", 1, "buckets"); `path` is the same place as
+    text ("layers[0].experiments[1].buckets"), for people.
+    """
 
     rule: str
     severity: str  # "error" or "warning"
@@ -20,6 +28,7 @@ class Problem:
     column: int
     path: str
     message: str
+    loc: Location = ()
 
     def __str__(self) -> str:
         where = f"{self.file}:{self.line}:{self.column}"

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass, field
 from datetime import date, datetime
 from pathlib import Path
 from typing import Any, Iterable
@@ -16,15 +15,16 @@ from typing import Any, Iterable
 import yaml
 from pydantic import ValidationError
 
+from ._config import Config, Document, Origin, PathKey
 from ._errors import ConfigError, Problem
-from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile, Holdout, Layer
+from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile
+from ._rules import structural_problems
 
 MAX_FILE_BYTES = 5 * 1024 * 1024
 MAX_NODES = 200_000
 MAX_ALIASES = 1_000
 CONFIG_SUFFIXES = (".yaml", ".yml")
 
-PathKey = tuple[Any, ...]
 _PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
 _MERGE_TAG = "tag:yaml.org,2002:merge"
 _PATTERN_WORDS = {
@@ -35,43 +35,12 @@ _PATTERN_WORDS = {
 }
 
 
-def format_path(path: Iterable[Any]) -> str:
-    """('layers', 0, 'arms', 1, 'weight') -> 'layers[0].arms[1].weight'."""
-    out = ""
-    for part in path:
-        if isinstance(part, int):
-            out += f"[{part}]"
-        else:
-            out += ("." if out else "") + str(part)
-    return out
-
-
-@dataclass
-class _Document:
-    """One file: its plain data and the mark (line, column) of every path in it."""
-
-    file: str
-    data: Any = None
-    marks: dict[PathKey, tuple[int, int]] = field(default_factory=dict)
-
-    def locate(self, path: PathKey) -> tuple[int, int]:
-        for cut in range(len(path), -1, -1):
-            mark = self.marks.get(tuple(path[:cut]))
-            if mark is not None:
-                return mark
-        return (1, 1)
-
-    def problem(self, rule: str, path: PathKey, message: str, severity: str = "error") -> Problem:
-        line, column = self.locate(path)
-        return Problem(rule, severity, self.file, line, column, format_path(path), message)
-
-
 class _LimitedLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
     """Safe loading only (libyaml's parser when present): no object construction.
     Size and alias limits are enforced by `_to_plain`."""
 
 
-def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
+def _to_plain(doc: Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
     seen: set[int] = set()
     counts = {"nodes": 0, "aliases": 0}
 
@@ -126,8 +95,8 @@ def _to_plain(doc: _Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
     return convert(node, ())
 
 
-def _read_document(path: Path, text: str | None = None) -> _Document:
-    doc = _Document(file=str(path))
+def _read_document(path: Path, text: str | None = None) -> Document:
+    doc = Document(file=str(path))
     if text is None:
         try:
             size = path.stat().st_size
@@ -157,7 +126,7 @@ def _read_document(path: Path, text: str | None = None) -> _Document:
     return doc
 
 
-def _schema_problems(doc: _Document, exc: ValidationError) -> list[Problem]:
+def _schema_problems(doc: Document, exc: ValidationError) -> list[Problem]:
     problems = []
     for error in exc.errors(include_url=False):
         loc = tuple(error["loc"])
@@ -212,55 +181,6 @@ def config_version(documents: Iterable[Any]) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
 
 
-@dataclass(frozen=True)
-class Origin:
-    """Where a merged element came from: its document and its path there."""
-
-    document: _Document
-    path: PathKey
-
-
-@dataclass(frozen=True, eq=False)
-class Config:
-    """A validated, merged config. `locate` maps a merged path to file, line, column."""
-
-    layers: tuple[Layer, ...]
-    holdouts: tuple[Holdout, ...]
-    weekly_units: dict[str, int]
-    version: str
-    files: tuple[str, ...]
-    _layer_origins: tuple[Origin, ...] = field(repr=False, default=())
-    _holdout_origins: tuple[Origin, ...] = field(repr=False, default=())
-    _weekly_origins: dict[str, Origin] = field(repr=False, default_factory=dict)
-
-    def origin(self, path: PathKey) -> tuple[_Document, PathKey]:
-        head = path[0] if path else None
-        if head == "layers" and len(path) > 1:
-            o = self._layer_origins[path[1]]
-            return o.document, o.path + tuple(path[2:])
-        if head == "holdout" and len(path) > 1:
-            o = self._holdout_origins[path[1]]
-            return o.document, o.path + tuple(path[2:])
-        if head == "weekly_units" and len(path) > 1 and path[1] in self._weekly_origins:
-            o = self._weekly_origins[path[1]]
-            return o.document, o.path + tuple(path[2:])
-        first = (self._layer_origins or self._holdout_origins)
-        document = first[0].document if first else _Document(file=self.files[0] if self.files else "<config>")
-        return document, tuple(path)
-
-    def locate(self, path: PathKey) -> tuple[str, int, int]:
-        document, local = self.origin(path)
-        line, column = document.locate(local)
-        return document.file, line, column
-
-    def problem(self, rule: str, path: PathKey, message: str, severity: str = "error") -> Problem:
-        document, local = self.origin(path)
-        return document.problem(rule, local, message, severity)
-
-    def layer(self, name: str) -> Layer | None:
-        return next((layer for layer in self.layers if layer.name == name), None)
-
-
 def config_files(path: Path) -> list[Path]:
     """The YAML files a path names: itself, or a directory's *.yaml/*.yml in name order."""
     if path.is_dir():
@@ -274,8 +194,6 @@ def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None 
     Problems include schema errors and, once the files parse, every rule of
     `_rules.structural_problems` (errors and warnings alike).
     """
-    from ._rules import structural_problems
-
     sources = [source] if isinstance(source, (str, Path)) else list(source)
     paths: list[Path] = []
     for s in sources:
@@ -287,7 +205,7 @@ def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None 
         return None, [Problem("file-unreadable", "error", str(sources[0]), 1, 1, "", "no .yaml or .yml files found")]
 
     problems: list[Problem] = []
-    documents: list[tuple[_Document, ConfigFile]] = []
+    documents: list[tuple[Document, ConfigFile]] = []
     for p in paths:
         try:
             doc = _read_document(p, text)

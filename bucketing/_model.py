@@ -35,7 +35,7 @@ Salt = Annotated[str, Field(pattern=SALT_PATTERN, max_length=200)]
 IsoDate = Annotated[date, BeforeValidator(_iso_date)]
 Number = Annotated[float, Field(allow_inf_nan=False)]
 AttributeValue = str | int | float | bool
-Condition = list[AttributeValue] | str
+ConditionSpec = list[AttributeValue] | str  # a list of values, or a version comparison such as '>=7.2'
 
 
 class _Strict(BaseModel):
@@ -55,7 +55,7 @@ class Arm(_Strict):
     params: dict[str, Any] = Field(default_factory=dict)
 
     @property
-    def buckets(self) -> int:
+    def width(self) -> int:
         """The arm's width in the experiment's 10,000 arm buckets (weight x 100)."""
         return round(self.weight * 100)
 
@@ -66,7 +66,7 @@ class Experiment(_Strict):
     buckets: list[Annotated[str, Field(pattern=RANGE_PATTERN)]] = Field(min_length=1)
     salt: Salt | None = None
     arms: list[Arm] = Field(min_length=1)
-    eligible: dict[str, Condition] = Field(default_factory=dict)
+    eligible: dict[str, ConditionSpec] = Field(default_factory=dict)
     overrides: dict[str, str] = Field(default_factory=dict)
     start: IsoDate | None = None
     end: IsoDate | None = None
@@ -101,8 +101,8 @@ class Holdout(_Strict):
     percent: Annotated[Number, Field(gt=0, lt=100)]
 
     @property
-    def buckets(self) -> int:
-        """Holdout buckets: units whose holdout bucket is below this are held out (percent x 100)."""
+    def width(self) -> int:
+        """Holdout width in buckets: units whose holdout bucket is below this are held out (percent x 100)."""
         return round(self.percent * 100)
 
 
@@ -116,6 +116,27 @@ class ConfigFile(_Strict):
         default_factory=dict,
         description="Expected distinct units per week, per unit type; used by `check` to flag arms too small.",
     )
+
+
+SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
+SCHEMA_ID = "urn:sortition:config-format:1"
+
+
+def config_schema() -> dict[str, Any]:
+    """The JSON Schema of one config file, made from these models so it never drifts from what loads.
+
+    Rules across fields (overlapping ranges, weights adding up to 100, ...)
+    are not in it: they are `RULES`, checked when a config loads.
+    """
+    body = {k: v for k, v in ConfigFile.model_json_schema().items() if k not in ("title", "description")}
+    return {
+        "$schema": SCHEMA_DIALECT,
+        "$id": SCHEMA_ID,
+        "title": "sortition experiment config (format 1)",
+        "description": "One YAML file of a sortition config: holdouts, layers, experiments and arms. "
+                       "Run `sortition check` for the rules that look across fields.",
+        **body,
+    }
 
 
 def experiment_salt(layer: Layer, experiment: Experiment) -> str:

@@ -79,16 +79,17 @@ class Condition:
 
 
 class ExperimentPlan:
-    __slots__ = ("name", "layer", "prefix", "thresholds", "arms", "arm_params", "running",
+    __slots__ = ("source", "name", "layer", "prefix", "thresholds", "arms", "arm_params", "running",
                  "first_day", "last_day", "conditions", "gated")
 
     def __init__(self, layer_name: str, layer, exp) -> None:
+        self.source = exp  # the experiment as configured: status, dates and rules as written, for explanations
         self.name = exp.name
         self.layer = layer_name
         self.prefix = experiment_salt(layer, exp) + ":"
         edges, total = [], 0
         for arm in exp.arms:
-            total += arm.buckets
+            total += arm.width
             edges.append(total)
         self.thresholds = tuple(edges)
         self.arms = tuple(arm.name for arm in exp.arms)
@@ -139,7 +140,8 @@ class LayerPlan:
 class Plan:
     """Everything `Assigner.assign` reads, immutable once built."""
 
-    __slots__ = ("config", "version", "pins", "layers", "layers_by_type", "hot", "holdouts", "param_owner")
+    __slots__ = ("config", "version", "pins", "layers", "layers_by_type", "hot", "holdouts", "param_owner",
+                 "targeted_attributes")
 
     def __init__(self, config: Config, pins: dict[str, dict[str, tuple[str, str]]] | None = None) -> None:
         """`pins`: layer -> unit -> (experiment, arm), forced whatever the status (bucketing.testing)."""
@@ -151,12 +153,14 @@ class Plan:
         for layer in self.layers:
             by_type.setdefault(layer.unit_type, []).append(layer)
         self.layers_by_type = {t: tuple(ls) for t, ls in by_type.items()}
-        self.holdouts = {h.unit: (h.salt + ":", h.buckets) for h in config.holdouts}
+        self.holdouts = {h.unit: (h.salt + ":", h.width) for h in config.holdouts}
         # What `assign` reads per unit type, as plain tuples: (holdout salt prefix or None,
         # holdout threshold, ((layer name, salt prefix, bucket -> running experiment, forced units), ...)).
+        # A unit type with a holdout and no layer is here too: its units can be held out.
         self.hot = {
-            t: (*self.holdouts.get(t, (None, 0)), tuple((lp.name, lp.prefix, lp.live, lp.forced) for lp in ls))
-            for t, ls in by_type.items()
+            t: (*self.holdouts.get(t, (None, 0)),
+                tuple((lp.name, lp.prefix, lp.live, lp.forced) for lp in self.layers_by_type.get(t, ())))
+            for t in [*by_type, *(t for t in self.holdouts if t not in by_type)]
         }
         self.param_owner = {
             name: layer.name
@@ -165,3 +169,6 @@ class Plan:
             for arm in exp.arms
             for name in arm.params
         }
+        # The attributes exposure records carry by default: those some experiment targets on.
+        self.targeted_attributes = frozenset(
+            attr for layer in config.layers for exp in layer.experiments for attr in exp.eligible)

@@ -13,7 +13,7 @@ from typing import Iterator
 
 from ._errors import Problem
 from ._hashing import BUCKETS
-from ._loader import Config
+from ._config import Config
 from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_version
 
 # Rule ids. Shared with `sortition check`, which documents each one.

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator, Mapping
+from typing import Any, Iterator, Mapping
 
 from ._assigner import Assigner
 from ._exposure import ExposureSink, MemorySink
@@ -50,6 +50,7 @@ def pinned(assigner: Assigner, units: Mapping[str, str], *, layer: str, experime
         assigner._plan = original
 
 
-def assigner_from_yaml(text: str, *, name: str = "<test config>", sink: ExposureSink | None = None) -> Assigner:
-    """An Assigner from YAML text, for tests that build a config inline."""
-    return Assigner(load_config(Path(name), text=text), sink=sink)
+def assigner_from_yaml(text: str, *, name: str = "<test config>", sink: ExposureSink | None = None,
+                       **options: Any) -> Assigner:
+    """An Assigner from YAML text, for tests that build a config inline; `options` go to `Assigner`."""
+    return Assigner(load_config(Path(name), text=text), sink=sink, **options)

@@ -1,11 +1,18 @@
-"""Shared fixtures: paths of the demo configs and a small inline config (invented)."""
+"""Shared fixtures: repository paths, one in-process `sortition` runner, the demo's audited logs (all invented)."""
 
 from pathlib import Path
 
 import pytest
+from typer.testing import CliRunner
+
+from audit import audit_logs
+from audit.cli import app
+from audit.demo import write_demo_logs
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLE = ROOT / "configs_example"
+CHECK_FIXTURES = ROOT / "tests" / "fixtures" / "check"
+DEMO_SEGMENTS = ["country", "platform", "app_version"]
 
 # Invented config used by several SDK tests: one layer, two experiments, a holdout.
 SMALL = """\
@@ -32,6 +39,8 @@ layers:
           - {name: control, weight: 100, params: {size: 1}}
 """
 
+_RUNNER = CliRunner()
+
 
 @pytest.fixture
 def example_dir() -> Path:
@@ -41,3 +50,21 @@ def example_dir() -> Path:
 @pytest.fixture
 def small_yaml() -> str:
     return SMALL
+
+
+@pytest.fixture
+def sortition():
+    """Run `sortition ARGS...` in-process (arguments may be paths): the Click result, stdout and stderr apart."""
+
+    def invoke(*args, input=None):
+        return _RUNNER.invoke(app, [str(a) for a in args], input=input)
+
+    return invoke
+
+
+@pytest.fixture(scope="session")
+def demo(tmp_path_factory):
+    """Demo logs with the fault, and their audit: built once per run (generating them takes a few seconds)."""
+    logs = write_demo_logs(EXAMPLE, tmp_path_factory.mktemp("demo-logs"), learners=40_000, devices=8_000)
+    result = audit_logs(logs.directory, config=EXAMPLE, segments=DEMO_SEGMENTS, replay_units=20_000)
+    return logs, result

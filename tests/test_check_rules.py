@@ -12,15 +12,12 @@ import shlex
 from pathlib import Path
 
 import pytest
-from typer.testing import CliRunner
 
-from audit._check import ALL_RULES
-from audit._cli import app
+from audit.checks import meanings
+from tests.conftest import CHECK_FIXTURES
 
-FIXTURES = Path(__file__).parent / "fixtures" / "check"
 MARKER = re.compile(r"#\s*<-\s*([a-z0-9-]+(?:\s*,\s*[a-z0-9-]+)*)\s*$")
 UNREADABLE = {"file-unreadable", "yaml-syntax", "yaml-limits"}
-runner = CliRunner()
 
 
 def _fixture_files(fixture: Path) -> list[Path]:
@@ -40,18 +37,18 @@ def _expected(fixture: Path) -> tuple[set[tuple[str, int, str]], list[str]]:
     return marks, args
 
 
-def _run(*args: str):
-    return runner.invoke(app, ["check", *args, "--format", "json"])
+def _run(sortition, *args: str):
+    return sortition("check", *args, "--format", "json")
 
 
-FIXTURE_CASES = sorted(p for p in FIXTURES.iterdir() if p.name != "clean.yaml" and p.name != "waived.yaml")
+FIXTURE_CASES = sorted(p for p in CHECK_FIXTURES.iterdir() if p.name != "clean.yaml" and p.name != "waived.yaml")
 
 
 @pytest.mark.parametrize("fixture", FIXTURE_CASES, ids=lambda p: p.name)
-def test_fixture_findings_match_its_markers(fixture):
+def test_fixture_findings_match_its_markers(sortition, fixture):
     marks, args = _expected(fixture)
     assert marks, f"{fixture.name} marks no line"
-    got = _run(str(fixture), *args)
+    got = _run(sortition, str(fixture), *args)
     findings = json.loads(got.stdout)["findings"]
     assert {(f["file"], f["line"], f["rule"]) for f in findings} == marks
     rules = {rule for _, _, rule in marks}
@@ -62,39 +59,39 @@ def test_fixture_findings_match_its_markers(fixture):
 def test_every_rule_has_a_fixture():
     # Rules that need a file no marker can sit in (bytes that are not UTF-8, a missing file) are tested below.
     covered = {rule for fixture in FIXTURE_CASES for _, _, rule in _expected(fixture)[0]}
-    assert set(ALL_RULES) - covered == {"file-unreadable"}
+    assert set(meanings("sdk", "lint")) - covered == {"file-unreadable"}
 
 
-def test_clean_fixture_has_no_findings_at_all():
-    got = _run(str(FIXTURES / "clean.yaml"), "--today", "2026-11-15")
+def test_clean_fixture_has_no_findings_at_all(sortition):
+    got = _run(sortition, str(CHECK_FIXTURES / "clean.yaml"), "--today", "2026-11-15")
     assert got.exit_code == 0
     assert json.loads(got.stdout)["findings"] == []
 
 
-def test_example_configs_have_no_errors():
-    got = _run(str(Path(__file__).parent.parent / "configs_example"), "--today", "2026-11-15")
+def test_example_configs_have_no_errors(sortition):
+    got = _run(sortition, str(Path(__file__).parent.parent / "configs_example"), "--today", "2026-11-15")
     assert got.exit_code == 0
     assert [f for f in json.loads(got.stdout)["findings"] if f["severity"] == "error"] == []
 
 
-def test_bytes_that_are_not_utf8_are_unreadable_at_line_1(tmp_path):
+def test_bytes_that_are_not_utf8_are_unreadable_at_line_1(sortition, tmp_path):
     bad = tmp_path / "latin1.yaml"
     bad.write_bytes("format: 1\n# caf\xe9\n".encode("latin-1"))
-    got = _run(str(bad))
+    got = _run(sortition, str(bad))
     assert got.exit_code == 2
     (finding,) = json.loads(got.stdout)["findings"]
     assert (finding["rule"], finding["line"]) == ("file-unreadable", 1)
     assert "UTF-8" in finding["message"]
 
 
-def test_missing_file_is_unreadable(tmp_path):
-    got = _run(str(tmp_path / "nowhere.yaml"))
+def test_missing_file_is_unreadable(sortition, tmp_path):
+    got = _run(sortition, str(tmp_path / "nowhere.yaml"))
     assert got.exit_code == 2
     assert json.loads(got.stdout)["findings"][0]["rule"] == "file-unreadable"
 
 
-def test_columns_point_at_the_flagged_node():
-    got = _run(str(FIXTURES / "traffic-overlap.yaml"))
+def test_columns_point_at_the_flagged_node(sortition):
+    got = _run(sortition, str(CHECK_FIXTURES / "traffic-overlap.yaml"))
     (finding,) = json.loads(got.stdout)["findings"]
-    line = (FIXTURES / "traffic-overlap.yaml").read_text().splitlines()[finding["line"] - 1]
+    line = (CHECK_FIXTURES / "traffic-overlap.yaml").read_text().splitlines()[finding["line"] - 1]
     assert line[finding["column"] - 1:].startswith("buckets:")

@@ -3,12 +3,14 @@
 All configs here are invented fixtures.
 """
 
+import re
 import textwrap
 from pathlib import Path
 
 import pytest
 
 from bucketing import Assigner, ConfigError, load_config, parse_config
+from tests.conftest import EXAMPLE
 
 BASE = """\
 format: 1
@@ -38,7 +40,10 @@ def only_error(text: str):
 
 def test_clean_config_loads_and_has_a_version():
     config = load_config(Path("c.yaml"), text=BASE)
-    assert len(config.version) == 12 and int(config.version, 16) >= 0
+    # 12 lower-case hex digits (docs/SPEC.md §4), a property of the content: a comment keeps it, another config changes it
+    assert re.fullmatch(r"[0-9a-f]{12}", config.version), config.version
+    assert load_config(Path("c.yaml"), text=BASE + "# a comment\n").version == config.version
+    assert load_config(EXAMPLE).version != config.version
     assert problems_of(BASE) == []
 
 

@@ -1,24 +1,12 @@
 """The demo's invented logs: written through the SDK, the planted fault found, localised and explained."""
 
 import json
-from pathlib import Path
 
-import pytest
 
-from audit._demo_logs import FAULT_ARM, FAULT_EXPERIMENT, FAULT_SEGMENT, write_demo_logs
-from audit._srm import audit_logs, parse_terms
+from audit import audit_logs
+from audit.demo import FAULT_ARM, FAULT_EXPERIMENT, FAULT_SEGMENT, write_demo_logs
 from bucketing import Assigner, load_config
-
-CONFIG = Path(__file__).resolve().parent.parent / "configs_example"
-TERMS = parse_terms("country,platform,app_version")
-
-
-@pytest.fixture(scope="session")
-def demo(tmp_path_factory):
-    """Demo logs with the fault, and their audit (shared: generating them takes a few seconds)."""
-    logs = write_demo_logs(CONFIG, tmp_path_factory.mktemp("demo-logs"), learners=40_000, devices=8_000)
-    result = audit_logs([str(logs.directory)], config=load_config(CONFIG), terms=TERMS, replay_units=20_000)
-    return logs, result
+from tests.conftest import DEMO_SEGMENTS, EXAMPLE as CONFIG
 
 
 def test_records_follow_the_contract_and_the_sdk(demo):
@@ -76,7 +64,7 @@ def test_the_noise_is_reported(demo):
 def test_without_a_fault_flags_stay_near_the_threshold(tmp_path):
     logs = write_demo_logs(CONFIG, tmp_path, seed=99, learners=20_000, devices=5_000, fault=False, noise=False)
     alpha = 0.05
-    result = audit_logs([str(tmp_path)], config=load_config(CONFIG), terms=TERMS, threshold=alpha, replay_units=0)
+    result = audit_logs([str(tmp_path)], config=load_config(CONFIG), segments=DEMO_SEGMENTS, threshold=alpha, replay_units=0)
     segments = [s for r in result.results for s in r.segments if s.units >= 50]
     flagged = sum(s.p_value < alpha for s in segments) / len(segments)
     assert len(segments) > 40

@@ -2,7 +2,7 @@
 
 The brute force enumerates all 10,000 x 10,000 pairs of the two buckets that
 matter in each case and applies the contract's assignment rule to each pair
-(its own code, written from DESIGN.md, not `_diff`'s); the shares must match
+(its own code, written from docs/SPEC.md, not `_diff`'s); the shares must match
 exactly. The replay assigns a million synthetic unit ids with the SDK under
 both configs and counts; the counts must fall within 5-sigma binomial bounds
 (scipy.stats.binom) of the shares `diff` predicts.
@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit._diff import diff_configs
+from audit import diff_configs
 from bucketing import Assigner, load_config
 
-BUCKETS = 10_000  # DESIGN.md: 10,000 buckets per layer
+BUCKETS = 10_000  # docs/SPEC.md §1.1: 10,000 buckets per layer
 GRID = (BUCKETS, BUCKETS)
 
 
@@ -43,7 +43,7 @@ def _config(layers, holdout=None):
 
 
 def _arm_of(weights: list[tuple[str, float]]) -> np.ndarray:
-    """Arm name of each arm bucket: DESIGN.md step 5, arms take consecutive ranges of weight*100 buckets."""
+    """Arm name of each arm bucket: docs/SPEC.md §3.5, arms take consecutive ranges of weight*100 buckets."""
     names = np.empty(BUCKETS, dtype=object)
     edge = 0
     for name, weight in weights:
@@ -74,7 +74,7 @@ def _brute(in_old: np.ndarray, in_new: np.ndarray, same_arm: np.ndarray) -> dict
 
 
 def _diff_shares(old, new, experiment: str) -> dict[str, Fraction]:
-    (change,) = [c for c in diff_configs(old, new) if c.experiment == experiment]
+    (change,) = [c for c in diff_configs(old, new).changes if c.experiment == experiment]
     return {"kept": change.kept, "switched": change.switched, "left": change.left, "entered": change.entered}
 
 
@@ -125,7 +125,7 @@ def test_layer_salt_change_matches_brute_force_over_old_and_new_layer_buckets():
     in_new = np.broadcast_to(_in_ranges(exp_after["ranges"])[None, :], GRID)
     expected = _brute(in_old, in_new, np.ones(GRID, dtype=bool))
     got = diff_configs(_config(_layer(exp_before, salt="layer-a")), _config(_layer(exp_after, salt="layer-b")))
-    (change,) = got
+    (change,) = got.changes
     assert {"kept": change.kept, "switched": change.switched, "left": change.left, "entered": change.entered} == expected
     assert not change.exact and "layer salt change" in change.causes
 
@@ -133,7 +133,7 @@ def test_layer_salt_change_matches_brute_force_over_old_and_new_layer_buckets():
 def test_holdout_change_with_same_salt_matches_brute_force_over_holdout_and_layer_buckets():
     exp_before = _exp([(0, 4999)], [("c", 50), ("t", 50)])
     exp_after = _exp([(0, 5999)], [("c", 50), ("t", 50)])
-    h = np.arange(BUCKETS)[:, None]  # holdout bucket: DESIGN.md step 2, held out when below percent*100
+    h = np.arange(BUCKETS)[:, None]  # holdout bucket: docs/SPEC.md §3.2 step 3, held out when below percent*100
     b = np.arange(BUCKETS)[None, :]
     in_old = (h >= 200) & _in_ranges(exp_before["ranges"])[b]
     in_new = (h >= 550) & _in_ranges(exp_after["ranges"])[b]
@@ -196,7 +196,7 @@ def test_replayed_units_fall_within_binomial_bounds_of_the_shares():
     ids = [f"learner-{i}" for i in range(UNITS)]
     before, after = _arms(old, ids), _arms(new, ids)
     confidence = 1 - 2 * stats.norm.sf(SIGMAS)
-    changes = {c.experiment: c for c in diff_configs(old, new)}
+    changes = {c.experiment: c for c in diff_configs(old, new).changes}
     assert set(changes) == {"ramped", "reordered", "redrawn", "moved"}
     for name, change in changes.items():
         layer = "paywall" if name == "moved" else "flow"

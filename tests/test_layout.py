@@ -2,27 +2,22 @@
 
 import json
 import shutil
-from pathlib import Path
 
 import pytest
-from typer.testing import CliRunner
 
-from audit._cli import app
-from audit._layout import LayerLayout, propose
+from audit.checks import LayerLayout, propose
 from bucketing import load_config
-
-EXAMPLES = Path(__file__).parent.parent / "configs_example"
-runner = CliRunner()
+from tests.conftest import EXAMPLE
 
 
-def _layout(*args):
-    got = runner.invoke(app, ["layout", *map(str, args), "--format", "json"])
+def _layout(sortition, *args):
+    got = sortition("layout", *args, "--format", "json")
     assert got.exit_code == 0, got.stderr
     return {layer["name"]: layer for layer in json.loads(got.stdout)["layers"]}
 
 
-def test_owned_and_free_ranges_of_the_examples():
-    layers = _layout(EXAMPLES)
+def test_owned_and_free_ranges_of_the_examples(sortition):
+    layers = _layout(sortition, EXAMPLE)
     # lessons.yaml (invented example): 0-3999 and 4000-5999 owned, so 6000-9999 is free.
     lesson = layers["lesson-flow"]
     assert [(o["experiment"], o["ranges"]) for o in lesson["owners"]] == [
@@ -31,18 +26,18 @@ def test_owned_and_free_ranges_of_the_examples():
     assert layers["audio-engine"]["free"] == []
 
 
-def test_bar_marks_owners_and_free_cells():
-    got = runner.invoke(app, ["layout", str(EXAMPLES), "--layer", "lesson-flow", "--width", "10"])
-    bar = next(l for l in got.stdout.splitlines() if l.strip().startswith("0 |"))
+def test_bar_marks_owners_and_free_cells(sortition):
+    got = sortition("layout", str(EXAMPLE), "--layer", "lesson-flow", "--width", "10")
+    bar = next(line for line in got.stdout.splitlines() if line.strip().startswith("0 |"))
     # 10 cells of 1,000 buckets: 4 of shorter-lessons (A), 2 of review-first (B), 4 free.
     assert bar.strip() == "0 |AAAABB....| 9999"
 
 
-def test_want_proposes_a_range_the_sdk_accepts(tmp_path):
-    layers = _layout(EXAMPLES, "--layer", "paywall", "--want", "12.5")
+def test_want_proposes_a_range_the_sdk_accepts(sortition, tmp_path):
+    layers = _layout(sortition, EXAMPLE, "--layer", "paywall", "--want", "12.5")
     proposal = layers["paywall"]["proposal"]
     assert proposal["buckets"] == ["7000-8249"]
-    shutil.copytree(EXAMPLES, tmp_path / "configs")
+    shutil.copytree(EXAMPLE, tmp_path / "configs")
     paywall = tmp_path / "configs" / "paywall.yaml"
     quoted = ", ".join(f'"{r}"' for r in proposal["buckets"])
     paywall.write_text(paywall.read_text() + (
@@ -66,8 +61,8 @@ def test_proposal_spreads_over_gaps_when_none_is_wide_enough():
     assert propose(layout, 351) is None
 
 
-def test_want_with_no_room_says_so():
-    got = runner.invoke(app, ["layout", str(EXAMPLES), "--layer", "audio-engine", "--want", "5"])
+def test_want_with_no_room_says_so(sortition):
+    got = sortition("layout", str(EXAMPLE), "--layer", "audio-engine", "--want", "5")
     assert got.exit_code == 0 and "not enough free buckets" in got.stdout
 
 
@@ -75,16 +70,16 @@ def test_want_with_no_room_says_so():
     (["--want", "0.001"], "two decimals"),
     (["--layer", "nowhere"], "no layer named"),
 ])
-def test_bad_options_are_one_line_errors(args, message):
-    got = runner.invoke(app, ["layout", str(EXAMPLES), *args])
+def test_bad_options_are_one_line_errors(sortition, args, message):
+    got = sortition("layout", str(EXAMPLE), *args)
     assert got.exit_code == 2 and message in got.stderr and len(got.stderr.strip().splitlines()) == 1
 
 
-def test_overlapping_experiments_show_as_clash_cells(tmp_path):
+def test_overlapping_experiments_show_as_clash_cells(sortition, tmp_path):
     (tmp_path / "c.yaml").write_text(
         "# Invented.\nformat: 1\nlayers:\n  - name: l\n    unit: learner\n    experiments:\n"
         "      - {name: a, status: draft, buckets: [\"0-4999\"], arms: [{name: x, weight: 100}]}\n"
         "      - {name: b, status: draft, buckets: [\"4000-5999\"], arms: [{name: x, weight: 100}]}\n")
-    got = runner.invoke(app, ["layout", str(tmp_path / "c.yaml"), "--width", "10"])
+    got = sortition("layout", str(tmp_path / "c.yaml"), "--width", "10")
     assert "0 |AAAA!B....| 9999" in got.stdout
     assert "error" in got.stderr

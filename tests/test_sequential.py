@@ -6,7 +6,7 @@ import random
 import numpy as np
 from scipy import stats
 
-from audit._stats import chi_square_fit, cumulative_fits, first_crossing, sequential_pvalues
+from audit.srm import chi_square_fit, cumulative_fits, first_crossing, sequential_p_values
 
 
 def test_bayes_factor_is_dirichlet_multinomial_over_multinomial():
@@ -16,13 +16,13 @@ def test_bayes_factor_is_dirichlet_multinomial_over_multinomial():
     counts = [61, 22, 17]
     reference_bf = (stats.dirichlet_multinomial.pmf(counts, np.array(shares) * concentration, sum(counts))
                     / stats.multinomial.pmf(counts, sum(counts), shares))
-    p = sequential_pvalues([counts], shares, concentration)[0]
+    p = sequential_p_values([counts], shares, concentration)[0]
     assert math.isclose(p, min(1.0, 1 / reference_bf), rel_tol=1e-9)
 
 
 def test_p_values_never_rise_from_one_day_to_the_next():
     daily = [[520, 480], [515, 485], [470, 530], [500, 500]]
-    ps = sequential_pvalues(daily, [0.5, 0.5])
+    ps = sequential_p_values(daily, [0.5, 0.5])
     assert all(later <= earlier for earlier, later in zip(ps, ps[1:]))
 
 
@@ -38,9 +38,9 @@ def test_daily_peeking_keeps_its_error_rate_where_repeated_chi_square_does_not()
             n = 400
             a = sum(1 for _ in range(n) if rng.random() < 0.5)
             daily.append([a, n - a])
-        if first_crossing(sequential_pvalues(daily, [0.5, 0.5]), alpha) is not None:
+        if first_crossing(sequential_p_values(daily, [0.5, 0.5]), alpha) is not None:
             sequential_hits += 1
-        if first_crossing([f.pvalue for f in cumulative_fits(daily, [0.5, 0.5])], alpha) is not None:
+        if first_crossing([f.p_value for f in cumulative_fits(daily, [0.5, 0.5])], alpha) is not None:
             repeated_hits += 1
     upper = stats.binom.ppf(0.999, runs, alpha) / runs
     assert sequential_hits / runs <= upper
@@ -51,12 +51,12 @@ def test_a_real_mismatch_is_found():
     # Kohavi, Tang & Xu, Trustworthy Online Controlled Experiments (2020): 821,588 vs 815,482
     # in a 50/50 test is a sample ratio mismatch; the sequential test agrees at 0.0005.
     daily = [[821_588 // 7, 815_482 // 7]] * 7
-    assert sequential_pvalues(daily, [0.5, 0.5])[-1] < 0.0005
-    assert chi_square_fit([821_588, 815_482], [0.5, 0.5]).pvalue < 0.0005
+    assert sequential_p_values(daily, [0.5, 0.5])[-1] < 0.0005
+    assert chi_square_fit([821_588, 815_482], [0.5, 0.5]).p_value < 0.0005
 
 
 def test_arms_with_zero_share_are_left_out():
-    assert sequential_pvalues([[10, 0, 10]], [0.5, 0.0, 0.5]) == sequential_pvalues([[10, 10]], [0.5, 0.5])
+    assert sequential_p_values([[10, 0, 10]], [0.5, 0.0, 0.5]) == sequential_p_values([[10, 10]], [0.5, 0.5])
 
 
 def test_audit_reports_the_anytime_valid_test_per_day(tmp_path):
@@ -85,4 +85,4 @@ def test_audit_reports_the_anytime_valid_test_per_day(tmp_path):
     result = json.loads(done.stdout)["results"][0]
     series = [d["sequential_p_value"] for d in result["days"]]
     assert all(b <= a for a, b in zip(series, series[1:]))
-    assert math.isclose(result["sequential_p_value"], sequential_pvalues(daily, [0.5, 0.5])[-1], rel_tol=1e-9)
+    assert math.isclose(result["sequential_p_value"], sequential_p_values(daily, [0.5, 0.5])[-1], rel_tol=1e-9)

@@ -6,7 +6,8 @@ from datetime import date
 
 import pytest
 
-from audit._srm import audit_logs, parse_terms
+from audit import audit_logs
+from audit.render import as_json
 from bucketing import Assigner, MemorySink, load_config
 from tests.conftest import EXAMPLE
 
@@ -26,7 +27,7 @@ def sdk_records():
 def audit(records, tmp_path):
     path = tmp_path / "log.jsonl"
     path.write_text("".join(json.dumps(r) + "\n" for r in records))
-    report = audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("country,platform,app_version"),
+    report = audit_logs([str(path)], config=load_config(EXAMPLE), segments=["country", "platform", "app_version"],
                         replay_units=0)
     return next(r for r in report.results if r.experiment == "shorter-lessons")
 
@@ -59,16 +60,15 @@ def test_dropped_exposures_in_one_segment_are_named_with_the_segment(sdk_records
 
 def test_clean_sdk_logs_name_no_cause(sdk_records, tmp_path):
     result = audit(sdk_records, tmp_path)
-    assert not result.srm and result.causes == []
+    assert not result.srm and result.causes == ()
 
 
 def test_the_same_logs_give_the_same_report_on_every_run(sdk_records, tmp_path):
     # Replay samples and counts must not depend on DuckDB's thread scheduling.
-    from audit._report_json import render_json
 
     path = tmp_path / "log.jsonl"
     path.write_text("".join(json.dumps(r) + "\n" for r in sdk_records) + "not json\n{\"unit\": 1}\n")
-    runs = {render_json(audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("country,platform"),
+    runs = {as_json(audit_logs([str(path)], config=load_config(EXAMPLE), segments=["country", "platform"],
                                    replay_units=700)) for _ in range(3)}
     assert len(runs) == 1
     assert json.loads(runs.pop())["results"][0]["replay_checked"] == 700
@@ -86,7 +86,7 @@ def test_by_auto_tests_every_attribute_column_and_leaves_out_crowded_ones(sdk_re
         path = tmp_path / f"log{suffix}"
         options = "(FORMAT parquet)" if suffix == ".parquet" else "(HEADER, DELIMITER ',')"
         duckdb.connect().execute(f"COPY (SELECT * FROM read_json('{source}')) TO '{path}' {options}")
-    report = audit_logs([str(path)], config=load_config(EXAMPLE), terms=parse_terms("auto"), replay_units=0)
+    report = audit_logs([str(path)], config=load_config(EXAMPLE), auto_segments=True, replay_units=0)
     assert sorted(report.segment_terms) == [("app_version",), ("country",), ("platform",)]
     assert any("'session'" in note for note in report.notes)
     lesson = next(r for r in report.results if r.experiment == "shorter-lessons")

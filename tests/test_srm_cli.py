@@ -2,16 +2,12 @@
 
 import json
 
-from typer.testing import CliRunner
 
-from audit._cli import app
-from tests.test_logs import invented_records, write_csv, write_jsonl
-
-runner = CliRunner()
+from tests.invented_logs import invented_records, write_csv, write_jsonl
 
 
-def srm(*args):
-    return runner.invoke(app, ["srm", *map(str, args), "--quiet"])
+def srm(sortition, *args):
+    return sortition("srm", *args, "--quiet")
 
 
 def balanced_log(tmp_path):
@@ -29,8 +25,8 @@ def skewed_log(tmp_path):
     return write_jsonl(tmp_path / "skewed.jsonl", records)
 
 
-def test_balanced_split_exits_zero_with_contract_json(tmp_path):
-    got = srm(balanced_log(tmp_path), "--expect", "50,50", "--by", "country", "--format", "json")
+def test_balanced_split_exits_zero_with_contract_json(sortition, tmp_path):
+    got = srm(sortition, balanced_log(tmp_path), "--expect", "50,50", "--by", "country", "--format", "json")
     assert got.exit_code == 0, got.output
     report = json.loads(got.stdout)
     assert set(report) >= {"threshold", "results", "malformed"}
@@ -42,53 +38,57 @@ def test_balanced_split_exits_zero_with_contract_json(tmp_path):
     assert result["units"] == 2000 and result["srm"] is False
 
 
-def test_mismatch_exits_one(tmp_path):
-    got = srm(skewed_log(tmp_path), "--expect", "left=50,right=50")
+def test_mismatch_exits_one(sortition, tmp_path):
+    got = srm(sortition, skewed_log(tmp_path), "--expect", "left=50,right=50")
     assert got.exit_code == 1
     assert "MISMATCH" in got.stdout and "exp-a" in got.stdout
 
 
-def test_unreadable_input_exits_two_with_one_line(tmp_path):
+def test_unreadable_input_exits_two_with_one_line(sortition, tmp_path):
     for args in ([tmp_path / "missing.jsonl", "--expect", "50,50"],
                  [write_csv(tmp_path / "x.csv", invented_records(), names={"unit": "uid"}), "--expect", "50,50"],
                  [balanced_log(tmp_path)],
                  [balanced_log(tmp_path), "--config", tmp_path / "nope.yaml"],
-                 [balanced_log(tmp_path), "--expect", "half,half"]):
-        got = srm(*args)
+                 [balanced_log(tmp_path), "--expect", "half,half"],
+                 [balanced_log(tmp_path), "--expect", "50,50", "--column", "unit"],
+                 [balanced_log(tmp_path), "--expect", "50,50", "--config-versions", tmp_path / "none"]):
+        got = srm(sortition, *args)
         assert got.exit_code == 2, (args, got.output)
         assert got.stdout == ""
         assert len(got.stderr.strip().splitlines()) == 1 and "Traceback" not in got.stderr
 
 
-def test_missing_column_error_names_file_and_field(tmp_path):
+def test_missing_column_error_names_file_and_field(sortition, tmp_path):
     path = write_csv(tmp_path / "theirs.csv", invented_records(), names={"unit": "user_id"})
-    got = srm(path, "--expect", "50,50")
+    got = srm(sortition, path, "--expect", "50,50")
     assert "theirs.csv" in got.stderr and "'unit'" in got.stderr and "--column unit=" in got.stderr
 
 
-def test_column_option_maps_names(tmp_path):
+def test_column_option_maps_names(sortition, tmp_path):
     path = write_csv(tmp_path / "theirs.csv", invented_records(), names={"unit": "user_id", "arm": "variant"})
-    got = srm(path, "--column", "unit=user_id", "--column", "arm=variant", "--expect", "left=50,right=50",
+    got = srm(sortition, path, "--column", "unit=user_id", "--column", "arm=variant", "--expect", "left=50,right=50",
               "--format", "json")
     assert got.exit_code in (0, 1)
     assert json.loads(got.stdout)["results"][0]["units"] > 0
 
 
-def test_strict_stops_on_malformed_records(tmp_path):
+def test_strict_counts_malformed_records_as_findings_like_check_counts_warnings(sortition, tmp_path):
     path = balanced_log(tmp_path)
     path.write_text(path.read_text() + "not a record\n")
-    assert srm(path, "--expect", "50,50").exit_code == 0
-    got = srm(path, "--expect", "50,50", "--strict")
-    assert got.exit_code == 2 and f"{path}:2001" in got.stderr
+    assert srm(sortition, path, "--expect", "50,50").exit_code == 0
+    got = srm(sortition, path, "--expect", "50,50", "--strict")
+    # --strict means the same in check and srm: what is otherwise only reported exits 1 (2 stays "unreadable")
+    assert got.exit_code == 1 and f"{path}:2001" in got.stderr
+    assert json.loads(srm(sortition, path, "--expect", "50,50", "--strict", "--format", "json").stdout)["srm"] is False
 
 
-def test_out_writes_the_report_to_a_file(tmp_path):
+def test_out_writes_the_report_to_a_file(sortition, tmp_path):
     out = tmp_path / "report.json"
-    got = srm(balanced_log(tmp_path), "--expect", "50,50", "--format", "json", "--out", out)
+    got = srm(sortition, balanced_log(tmp_path), "--expect", "50,50", "--format", "json", "--out", out)
     assert got.exit_code == 0 and got.stdout == ""
     assert json.loads(out.read_text())["results"][0]["experiment"] == "exp-a"
 
 
-def test_help_shows_an_example():
-    got = runner.invoke(app, ["srm", "--help"])
+def test_help_shows_an_example(sortition):
+    got = sortition("srm", "--help")
     assert got.exit_code == 0 and "Example: sortition srm" in got.stdout

@@ -1,7 +1,7 @@
 """Golden vectors and an independent reading of the contract agree with the SDK.
 
 `reference_assign` below is a deliberately plain transcription of the
-assignment rules of shared/DESIGN.md over the raw YAML (mmh3 and dicts, no
+assignment rules of docs/SPEC.md over the raw YAML (mmh3 and dicts, no
 precomputed tables), written separately from the SDK. The golden file
 tests/vectors/assignments.jsonl is what another-language implementation
 reproduces; here both must agree with the SDK on every line.

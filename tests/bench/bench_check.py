@@ -15,10 +15,10 @@ from pathlib import Path
 
 import yaml
 
-_FAST_SAFE = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
-from audit._check import CheckOptions, check
+from audit import check_config
 from bucketing import parse_config
+
+_FAST_SAFE = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 LAYERS = 50
 EXPERIMENTS_PER_LAYER = 40
@@ -72,12 +72,11 @@ def run() -> str:
         folder = Path(scratch)
         files = write_config(folder)
         lines = sum(len(f.read_text().splitlines()) for f in files)
-        options = CheckOptions(today=date(2026, 12, 1))
-        result = check([folder], options)
+        result = check_config(folder, day=date(2026, 12, 1))
         assert result.errors == 0, result.findings[:3]
 
         def run_check():
-            return check([folder], options)
+            return check_config(folder, day=date(2026, 12, 1))
 
         def run_baseline():
             return [yaml.load(f.read_text(encoding="utf-8"), Loader=_FAST_SAFE) for f in files]

@@ -36,7 +36,7 @@ COPY (
 MEASURE = """
 import json, resource, sys, time
 import duckdb
-from audit._srm import audit_logs, parse_terms
+from audit import audit_logs
 kind, path = sys.argv[1], sys.argv[2]
 started = time.perf_counter()
 if kind == "bare":
@@ -46,7 +46,7 @@ elif kind == "bare-distinct":
     source = f"read_parquet('{path}')" if path.endswith(".parquet") else f"read_json('{path}', format='newline_delimited')"
     duckdb.connect().execute(f"SELECT experiment, arm, count(DISTINCT unit) FROM {source} GROUP BY ALL").fetchall()
 else:
-    result = audit_logs([path], expectation=[50, 50], terms=parse_terms("country,platform"), replay_units=0)
+    result = audit_logs(path, expect=[50, 50], segments=["country", "platform"], replay_units=0)
     assert result.results[0].units > 0
 print(json.dumps({"seconds": time.perf_counter() - started,
                   "peak_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))

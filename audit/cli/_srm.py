@@ -1,0 +1,128 @@
+"""`sortition srm`: the sample-ratio-mismatch audit of exposure logs."""
+
+from __future__ import annotations
+
+import shutil
+import sys
+import tempfile
+import time
+from enum import Enum
+from pathlib import Path
+from typing import TYPE_CHECKING, Optional
+
+import typer
+
+from ..render import as_json, srm_text
+from ._exit import fail, guarded, srm_exit
+from ._options import column_map, expectation, segment_terms
+
+if TYPE_CHECKING:  # the audit loads SciPy (and its engine DuckDB): imported when `srm` runs, not at start-up
+    from ..srm import AuditResult
+
+
+class SrmFormat(str, Enum):
+    text = "text"
+    json = "json"
+    html = "html"
+
+
+class _StderrProgress:
+    """Stage names on stderr; a moving bar when stderr is a terminal."""
+
+    def __init__(self) -> None:
+        self.live = sys.stderr.isatty()
+        self.started: dict[str, float] = {}
+
+    def __call__(self, label: str, fraction: float) -> None:
+        first = label not in self.started
+        self.started.setdefault(label, time.perf_counter())
+        if fraction >= 1.0:
+            elapsed = time.perf_counter() - self.started.pop(label)
+            if elapsed >= 0.5 or self.live:
+                sys.stderr.write(f"\r{label}: done in {elapsed:.1f} s{' ' * 20}\n")
+        elif self.live:
+            filled = int(fraction * 30)
+            sys.stderr.write(f"\r{label}: [{'#' * filled}{'.' * (30 - filled)}] {fraction:5.0%}")
+        elif first:
+            sys.stderr.write(f"{label}...\n")
+        sys.stderr.flush()
+
+
+def _report(result: AuditResult, fmt: SrmFormat) -> str:
+    if fmt is SrmFormat.json:
+        return as_json(result)
+    if fmt is SrmFormat.html:
+        from ..render.html_report import srm_html  # SciPy's interval, loaded for HTML reports only
+
+        return srm_html(result)
+    return srm_text(result)
+
+
+def _stdin_to_file(directory: str) -> str:
+    path = Path(directory) / "stdin.jsonl"
+    with open(path, "wb") as out:
+        shutil.copyfileobj(sys.stdin.buffer, out)
+    return str(path)
+
+
+def register(app: typer.Typer) -> None:
+    @app.command(
+        "srm",
+        epilog="Example: sortition srm logs/ --config configs_example --by country,platform,app_version "
+        "--format html --out srm.html   (exit 0: no mismatch, 1: mismatch, or malformed records with --strict, 2: unreadable input)",
+    )
+    def srm(
+        logs: list[str] = typer.Argument(..., help="Log files, globs or directories (.jsonl, .csv, .tsv, .parquet, "
+                                                   "plain or .gz); '-' reads JSON Lines from stdin."),
+        config: Optional[Path] = typer.Option(None, "--config", help="Config file or directory: expected shares, "
+                                                                     "date windows, and the arm replay."),
+        config_versions: Optional[Path] = typer.Option(None, "--config-versions", help="Directory of past config "
+            "versions (one YAML file or subdirectory each); records are replayed under the version they name."),
+        by: Optional[str] = typer.Option(None, "--by", help="Segment attributes, comma-separated; join with + to "
+                                                            "test combinations, e.g. country,platform+app_version; "
+                                                            "'auto' tests every other column of the logs."),
+        column: list[str] = typer.Option([], "--column", help="FIELD=LOG_COLUMN when the logs use other names, "
+                                                              "e.g. --column unit=user_id --column arm=variant."),
+        expect: Optional[str] = typer.Option(None, "--expect", help="Expected split when there is no config "
+                                             "(or to override it): 50,50 (arms in name order) or control=50,short=50."),
+        threshold: Optional[float] = typer.Option(None, "--threshold", help="p-value below which a split is a "
+                                                  "mismatch (default 0.0005, per Fabijan et al., KDD 2019)."),
+        fmt: SrmFormat = typer.Option(SrmFormat.text, "--format", help="text, json or html."),
+        out: Optional[Path] = typer.Option(None, "--out", help="Write the report to this file instead of stdout."),
+        strict: bool = typer.Option(False, "--strict", help="Count malformed records as findings: exit 1 if any."),
+        replay_units: Optional[int] = typer.Option(None, "--replay-units", help="Units per experiment whose arm is "
+                                                   "recomputed from the config (a sample; default 50,000); 0 for all."),
+        log_format: Optional[str] = typer.Option(None, "--log-format", help="jsonl, csv, tsv or parquet, for "
+                                                 "files whose name does not say."),
+        quiet: bool = typer.Option(False, "--quiet", help="No progress on stderr."),
+    ) -> None:
+        """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
+
+        def run() -> int:
+            from ..srm import DEFAULT_REPLAY_UNITS, DEFAULT_THRESHOLD, LOG_FORMATS, audit_logs
+
+            cutoff = DEFAULT_THRESHOLD if threshold is None else threshold
+            if not 0 < cutoff < 1:
+                fail(f"--threshold must be between 0 and 1, found {cutoff}")
+            if log_format is not None and log_format not in LOG_FORMATS:
+                fail(f"--log-format must be jsonl, csv, tsv or parquet, found {log_format!r}")
+            terms, automatic = segment_terms(by)
+            expected = expectation(expect)
+            if config is None and expected is None:
+                fail("give a config (--config) or an expected split (--expect 50,50)")
+            with tempfile.TemporaryDirectory(prefix="sortition-srm-") as scratch:
+                sources = [_stdin_to_file(scratch) if s == "-" else s for s in logs]
+                result = audit_logs(
+                    sources, config=config, expect=expected, segments=terms, auto_segments=automatic,
+                    columns=column_map(column), threshold=cutoff, config_versions=config_versions,
+                    replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units,
+                    log_format=log_format, progress=None if quiet else _StderrProgress())
+            report = _report(result, fmt)
+            if out is not None:
+                out.write_text(report, encoding="utf-8")
+                typer.echo(f"wrote {out}", err=True)
+            else:
+                sys.stdout.write(report)
+            return srm_exit(result, strict)
+
+        guarded(run)

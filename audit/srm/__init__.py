@@ -1,0 +1,36 @@
+"""The SRM audit: exposure records in, per experiment a test of its split, where it breaks, and why.
+
+Layers inside, one direction: `_files`/`_scan`/`_sql`/`_malformed` read
+(DuckDB), `_engine` is the counting-engine interface and `_duckdb` its
+default implementation, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
+on small tables, `_results` holds the frozen results, `_audit` runs it all.
+Nothing here renders or chooses an exit code.
+"""
+
+from ._audit import AUTO_MAX_VALUES, DEFAULT_REPLAY_UNITS, audit_logs
+from ._designs import Design, Expectation, designs_from_config, designs_from_expectation
+from ._diagnosis import CAUSES, diagnose
+from ._engine import ENGINES, CensusRow, CountingEngine, ReplayUnit, UnitSummary, UnitTables, engine_named
+from ._files import LOG_FORMATS, LogFile, resolve_files
+from ._results import (
+    ArmResult, AuditResult, Cause, DayResult, ExperimentResult, Localisation, Malformed, MalformedExample,
+    SegmentResult, UnknownRecords,
+)
+from ._stats import (
+    DEFAULT_THRESHOLD, ArmGap, FitResult, SegmentShift, arm_gaps, chi_square_fit, chi_square_p_value,
+    cumulative_fits, expected_shares, first_crossing, holm_adjust, leave_out, proportion_test, sequential_p_values,
+    share_interval,
+)
+
+__all__ = [
+    "audit_logs", "DEFAULT_REPLAY_UNITS", "AUTO_MAX_VALUES",
+    "AuditResult", "ExperimentResult", "ArmResult", "SegmentResult", "DayResult", "Localisation", "Cause",
+    "UnknownRecords", "Malformed", "MalformedExample",
+    "Design", "Expectation", "designs_from_config", "designs_from_expectation",
+    "CAUSES", "diagnose",
+    "CountingEngine", "UnitTables", "CensusRow", "UnitSummary", "ReplayUnit", "ENGINES", "engine_named",
+    "LogFile", "LOG_FORMATS", "resolve_files",
+    "DEFAULT_THRESHOLD", "FitResult", "ArmGap", "SegmentShift", "chi_square_fit", "chi_square_p_value", "arm_gaps",
+    "holm_adjust", "leave_out", "cumulative_fits", "first_crossing", "share_interval", "proportion_test",
+    "sequential_p_values", "expected_shares",
+]

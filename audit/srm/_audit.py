@@ -1,0 +1,284 @@
+"""The SRM audit's orchestration: exposure records in, one frozen `AuditResult` out (no rendering).
+
+A counting engine (DuckDB by default) reduces the records to small tables;
+this module turns them into results with the statistics of `_stats`, the
+segment tests of `_segments`, the replay of `_replay` and the causes of
+`_diagnosis`.
+
+    from audit import audit_logs
+    result = audit_logs("logs/", config="configs/", segments=["country", "platform"])
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Iterable, Mapping, Sequence, Union
+
+from bucketing import Config, load_config
+
+from .._errors import AuditError, LogError
+from . import _stats
+from ._designs import Design, Expectation, designs_from_config, designs_from_logs
+from ._diagnosis import diagnose
+from ._engine import CensusRow, CountingEngine, Progress, UnitTables, engine_named
+from ._replay import replay, segment_replay
+from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
+from ._segments import day_results, localise, test_segments, without_worst
+
+DEFAULT_REPLAY_UNITS = 50_000
+EXAMPLES = 5
+AUTO_MAX_VALUES = 50  # an automatic segment attribute with more values than this is left out, with a note
+
+Source = Union[str, Path, Sequence[Union[str, Path]], Any]  # paths, or an in-memory table
+SegmentSpec = Union[str, Sequence[str]]  # a column name, or several tested in combination
+
+
+def audit_logs(source: Source, *, config: Config | str | Path | None = None, expect: Expectation | None = None,
+               segments: Iterable[SegmentSpec] = (), auto_segments: bool = False,
+               columns: Mapping[str, str] | None = None, threshold: float = _stats.DEFAULT_THRESHOLD,
+               config_versions: str | Path | None = None, replay_units: int = DEFAULT_REPLAY_UNITS,
+               log_format: str | None = None, engine: str | CountingEngine = "duckdb",
+               progress: Progress | None = None) -> AuditResult:
+    """Audit exposure records for sample ratio mismatch: is each experiment's split of units as designed?
+
+    - `source`: a path, glob or directory of logs (JSON Lines, CSV, TSV, Parquet; .gz), a list of them,
+      or an in-memory table with the exposure record's columns (a pandas DataFrame, a pyarrow Table,
+      a DuckDB relation).
+    - `config` (a `Config` or its path) gives each experiment's expected split, dates and the arm replay;
+      `expect` gives one expected split instead: weights in arm-name order (`[50, 50]`) or by arm
+      (`{"control": 50, "short": 50}`).
+    - `segments`: column names to test segment by segment; a tuple of names tests their combinations.
+      `auto_segments` adds every other column of the logs.
+    - `columns`: record field -> log column, for logs that use other names.
+    - `config_versions`: a directory of past config versions; each unit is replayed under its record's.
+
+    Returns a frozen `AuditResult`; `result.to_dict()` is the JSON of `sortition srm --format json`.
+    """
+    if not 0 < threshold < 1:
+        raise AuditError(f"the threshold must be between 0 and 1, found {threshold}")
+    loaded = config if config is None or isinstance(config, Config) else load_config(Path(config))
+    if loaded is None and expect is None:
+        raise AuditError("give a config or an expected split")
+    replay_configs = _load_versions(config_versions) if config_versions is not None else {}
+    if loaded is not None:
+        replay_configs.setdefault(loaded.version, loaded)
+    terms = list(dict.fromkeys((s,) if isinstance(s, str) else tuple(s) for s in segments))
+    attributes = [name for term in terms for name in term]
+    for cfg in replay_configs.values():
+        attributes += [key for layer in cfg.layers for exp in layer.experiments for key in exp.eligible]
+    counting = engine_named(engine)
+    paths = [source] if isinstance(source, (str, Path)) else source
+    if isinstance(paths, (list, tuple)):
+        paths = [str(p) for p in paths]
+
+    def read(names: list[str]) -> UnitTables:
+        return counting.read(paths, columns, names, keep_versions=bool(replay_configs), log_format=log_format,
+                             progress=progress)
+
+    tables = read(attributes)
+    try:
+        automatic: list[tuple[str, ...]] = []
+        if auto_segments:
+            automatic = [(name,) for name in tables.other_columns() if (name,) not in terms]
+            tables.close()
+            tables = read(attributes + [name for (name,) in automatic])
+        plan = _Plan(loaded, expect, terms + automatic, set(automatic), threshold, replay_configs, replay_units)
+        return _audit(tables, plan)
+    finally:
+        tables.close()
+
+
+def _load_versions(directory: str | Path) -> dict[str, Config]:
+    """Every config version in a directory: each YAML file, or each subdirectory, is one version."""
+    root = Path(directory)
+    if not root.is_dir():
+        raise AuditError(f"{root}: config versions are read from a directory (one YAML file or subdirectory each)")
+    configs = {}
+    for entry in sorted(p for p in root.iterdir() if p.is_dir() or p.suffix in (".yaml", ".yml")):
+        loaded = load_config(entry)
+        configs[loaded.version] = loaded
+    if not configs:
+        raise AuditError(f"{root}: no config versions (YAML files or directories of them) found")
+    return configs
+
+
+@dataclass
+class _Plan:
+    """What the audit was asked, and what it learns on the way (crowded automatic segments, notes)."""
+
+    config: Config | None
+    expect: Expectation | None
+    terms: list[tuple[str, ...]]
+    automatic: set[tuple[str, ...]]
+    threshold: float
+    replay_configs: dict[str, Config]
+    replay_units: int
+    crowded: set[tuple[str, ...]] = field(default_factory=set)
+    notes: list[str] = field(default_factory=list)
+
+    def tested_terms(self) -> list[tuple[str, ...]]:
+        return [term for term in self.terms if term not in self.crowded]
+
+
+@dataclass
+class _Census:
+    """The records by what became of them: malformed kinds, outside the dates, per arm, unknown."""
+
+    records: int = 0
+    problems: dict[str, int] = field(default_factory=lambda: defaultdict(int))
+    outside: dict[int, int] = field(default_factory=lambda: defaultdict(int))
+    logged: dict[tuple[int, int], list[int]] = field(default_factory=lambda: defaultdict(lambda: [0, 0]))
+    unknown: list[UnknownRecords] = field(default_factory=list)
+
+
+def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
+    plan.notes += tables.notes
+    designs = designs_from_config(plan.config) if plan.config is not None and plan.expect is None else None
+    rows = tables.census(designs or [])
+    if designs is None:
+        assert plan.expect is not None
+        designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows
+                                     if r.problem is None and r.experiment is not None and r.arm is not None],
+                                    plan.expect, plan.config)
+    census = _sort_census(rows, designs)
+    plan.notes += _near_miss_notes(census.unknown, designs)
+    if any(r.epoch_times for r in rows):
+        plan.notes += tables.epoch_notes()
+    malformed = tables.malformed(census.problems)
+    if census.records and census.records == malformed.total:
+        raise LogError(f"{tables.sources[0]}: no usable exposure record "
+                       f"({malformed.total} malformed; first: {malformed.examples[0].detail})")
+    tables.place_units(designs)
+    results = [_experiment(tables, plan, index, design, census.outside.get(index, 0),
+                           [census.logged.get((index, arm), [0, 0]) for arm in range(len(design.arms))])
+               for index, design in enumerate(designs)]
+    kept = [r for r in results if r.units or r.records or r.outside_window_records]
+    kept.sort(key=lambda r: (not r.srm, r.p_value, r.layer, r.experiment))
+    return AuditResult(plan.threshold, tuple(tables.sources), census.records, tuple(kept), malformed,
+                       tuple(census.unknown), tuple(plan.tested_terms()), tuple(plan.notes))
+
+
+def _sort_census(rows: Sequence[CensusRow], designs: Sequence[Design]) -> _Census:
+    census = _Census()
+    by_name: dict[str, list[int]] = defaultdict(list)
+    for position, design in enumerate(designs):
+        by_name[design.experiment].append(position)
+    unknown: dict[tuple, UnknownRecords] = {}
+    for row in rows:
+        census.records += row.records
+        if row.problem is not None:
+            census.problems[row.problem] += row.records
+            continue
+        index = next((i for i in by_name.get(row.experiment or "", ()) if row.layer is None
+                      or designs[i].layer == row.layer), None)
+        if index is None:
+            reason, arm = "unknown_experiment", None
+        elif row.arm not in designs[index].arms:
+            reason, arm = "unknown_arm", row.arm
+        elif row.outside:
+            census.outside[index] += row.records
+            continue
+        else:
+            totals = census.logged[(index, designs[index].arms.index(row.arm))]
+            totals[0] += row.records
+            totals[1] += row.repeats
+            continue
+        key = (reason, row.layer, row.experiment, arm)
+        before = unknown.get(key)
+        unknown[key] = UnknownRecords(row.experiment or "", arm, row.layer,
+                                      row.records + (before.records if before else 0), reason)
+    census.unknown = sorted(unknown.values(), key=lambda u: -u.records)
+    return census
+
+
+def _near_miss_notes(unknown: Sequence[UnknownRecords], designs: Sequence[Design]) -> list[str]:
+    """Unknown names that equal a known one but for case or surrounding spaces: names are compared exactly, so say so."""
+    def near(name: str, known: Iterable[str]) -> str | None:
+        return next((k for k in known if k != name and k.casefold() == name.strip().casefold()), None)
+
+    notes = []
+    for u in unknown:
+        if u.reason == "unknown_arm" and u.arm is not None:
+            design = next(d for d in designs if d.experiment == u.experiment and (u.layer is None or d.layer == u.layer))
+            closest, what = near(u.arm, design.arms), f"arm {u.arm!r} of {u.experiment!r}"
+        else:
+            closest, what = near(u.experiment, (d.experiment for d in designs)), f"experiment {u.experiment!r}"
+        if closest is not None:
+            notes.append(f"{what} ({u.records:,} records) is unknown; it matches {closest!r} but for case or spaces, "
+                         f"and names are compared exactly")
+    return notes
+
+
+def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, outside_records: int,
+                logged: list[list[int]]) -> ExperimentResult:
+    """One experiment's test; `logged` gives, per arm, its records and its repeated records."""
+    counts = tables.arm_units(index)
+    summary = tables.unit_summary(index, EXAMPLES)
+    fit = _stats.chi_square_fit(counts, design.shares)
+    total = sum(counts)
+    arms = []
+    for name, gap, (records, repeats) in zip(design.arms, _stats.arm_gaps(counts, design.shares), logged):
+        low, high = _stats.share_interval(gap.observed, total)
+        arms.append(ArmResult(name, gap.observed, gap.expected_share, gap.observed_share, gap.expected,
+                              gap.excess, gap.ratio, low, high, records, repeats))
+    result = ExperimentResult(
+        layer=design.layer, experiment=design.experiment, units=total, arms=tuple(arms), chi2=fit.statistic,
+        df=fit.df, p_value=fit.p_value, srm=fit.p_value < plan.threshold, records=sum(a.records for a in arms),
+        duplicate_records=sum(a.duplicate_records for a in arms), multi_arm_units=summary.multi_arm,
+        multi_arm_examples=tuple({"unit": unit, "arms": [design.arms[low], design.arms[high]]}
+                                 for unit, low, high in summary.multi_arm_examples),
+        forced_units=summary.forced, outside_window_records=outside_records,
+        records_p_value=_stats.chi_square_fit([a.records for a in arms], design.shares).p_value,
+    )
+    if total == 0:
+        return result
+    days = day_results(design, tables.day_units(index))
+    crossing = _stats.first_crossing([d.cumulative_p for d in days], plan.threshold)
+    sequential = _stats.first_crossing([d.sequential_p for d in days], plan.threshold)
+    segments = test_segments(design, counts, _segment_counts(tables, plan, index), plan.threshold)
+    result = replace(
+        result, days=tuple(days), first_srm_day=days[crossing].day if crossing is not None else None,
+        sequential_p_value=days[-1].sequential_p if days else 1.0,
+        first_sequential_srm_day=days[sequential].day if sequential is not None else None,
+        without_worst=without_worst(design, counts, segments, plan.threshold),
+        localisation=localise(tables, index, design, segments, _names(plan), plan.threshold) if result.srm else None)
+    if plan.replay_configs:
+        result = _with_replay(tables, plan, index, design, result, segments)
+    else:
+        result = replace(result, segments=tuple(segments))
+    return replace(result, causes=diagnose(result, plan.threshold))
+
+
+def _names(plan: _Plan) -> list[str]:
+    return list(dict.fromkeys(name for term in plan.tested_terms() for name in term))
+
+
+def _segment_counts(tables: UnitTables, plan: _Plan, index: int) -> list[tuple[tuple[str, ...], dict]]:
+    """Arm counts per value of each segment term; an automatic term with too many values is dropped, with a note."""
+    grouped = []
+    for term in plan.tested_terms():
+        by_value = tables.segment_units(index, term)
+        if term in plan.automatic and len(by_value) > AUTO_MAX_VALUES:
+            plan.crowded.add(term)
+            plan.notes.append(f"automatic segments: column {term[0]!r} has more than {AUTO_MAX_VALUES} values, "
+                              f"left out of the segments (name it as a segment to test it anyway)")
+            continue
+        grouped.append((term, by_value))
+    return grouped
+
+
+def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, result: ExperimentResult,
+                 segments: list[SegmentResult]) -> ExperimentResult:
+    """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
+    units = tables.replay_sample(index, plan.replay_units)
+    fallback = plan.config or next(iter(plan.replay_configs.values()))
+    summary, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
+    plan.notes += notes
+    replayed = []
+    for segment in segments:
+        checked, off = segment_replay(segment, units, mismatched, tables.attributes)
+        replayed.append(replace(segment, replay_checked=checked, replay_mismatched=off))
+    return replace(result, segments=tuple(replayed), replay_checked=summary.checked,
+                   replay_mismatched=summary.mismatched, replay_examples=summary.examples)

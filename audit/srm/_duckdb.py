@@ -1,0 +1,132 @@
+"""The DuckDB counting engine: the default implementation of `_engine.CountingEngine`.
+
+One pass over the records reduces them to one row per unit and logged arm
+(`unit_arms`: records, exact repeats, first exposure and the attributes
+then); a second, small aggregate gives one row per unit and experiment
+(`unit_rows`). Every small table the audit asks for is a GROUP BY on that
+much smaller table.
+"""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Any, Mapping, Sequence
+
+from . import _sql
+from ._designs import Design
+from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
+from ._files import resolve_files
+from ._malformed import malformed_records
+from ._results import Malformed
+from ._scan import LogScan
+from ._sql import FieldNames
+
+VERSION_COLUMNS = ["config", "unit_type"]
+
+
+class DuckDBEngine:
+    name = "duckdb"
+
+    def __init__(self, threads: int | None = None, memory_limit: str | None = None) -> None:
+        self.threads = threads
+        self.memory_limit = memory_limit
+
+    def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
+             keep_versions: bool, log_format: str | None = None,
+             progress: Progress | None = None) -> DuckDBUnitTables:
+        names = FieldNames.of(columns, attributes)
+        if _is_paths(source):
+            scan = LogScan(resolve_files(source, log_format), names, progress=progress, threads=self.threads,
+                           memory_limit=self.memory_limit)
+        else:
+            scan = LogScan([], names, table=source, progress=progress, threads=self.threads,
+                           memory_limit=self.memory_limit)
+        return DuckDBUnitTables(scan, keep_versions)
+
+
+def _is_paths(source: Any) -> bool:
+    return isinstance(source, (list, tuple)) and all(isinstance(s, str) or hasattr(s, "__fspath__") for s in source)
+
+
+class DuckDBUnitTables:
+    """The unit tables of one audit, in one DuckDB connection."""
+
+    def __init__(self, scan: LogScan, keep_versions: bool) -> None:
+        self.scan = scan
+        self.names = scan.names
+        self.sources = scan.sources
+        self.notes = scan.notes
+        self.attributes = scan.names.attributes
+        self.layer_logged = "layer" in scan.present
+        self.kept = (VERSION_COLUMNS if keep_versions else []) + [self.names.attribute_column(a)
+                                                                  for a in self.attributes]
+
+    def other_columns(self) -> list[str]:
+        return self.scan.other_columns()
+
+    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
+        outside = _sql.outside_case(designs, self.layer_logged)
+        self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text), "reading records")
+        return [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
+
+    def epoch_notes(self) -> list[str]:
+        return self.scan.epoch_notes()
+
+    def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
+        return malformed_records(self.scan, counts_by_kind)
+
+    def place_units(self, designs: Sequence[Design]) -> None:
+        self.scan.query(_sql.unit_rows(designs, self.layer_logged, self.kept), "counting units")
+        self.arms = [len(d.arms) for d in designs]
+
+    def _where(self, within: Segment | None, without: Segment | None) -> str:
+        where = _sql.segment_where(within or {}, self.names)
+        return f"{where} AND NOT ({_sql.segment_where(without, self.names)})" if without else where
+
+    def arm_units(self, experiment: int, within: Segment | None = None,
+                  without: Segment | None = None) -> ArmCounts:
+        counts = [0] * self.arms[experiment]
+        for arm, units in self.scan.query(f"""
+                SELECT arm, count(*) FROM unit_rows WHERE {_sql.tested_units(experiment, self._where(within, without))}
+                GROUP BY arm""", "counting arms"):
+            counts[arm] = units
+        return counts
+
+    def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
+        (multi, forced), = self.scan.query(f"""
+            SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi)
+            FROM unit_rows WHERE exp = {int(experiment)}""")
+        rows = self.scan.query(f"""
+            SELECT unit, arm_low, arm_high FROM unit_rows WHERE exp = {int(experiment)} AND multi
+            ORDER BY unit LIMIT {int(examples)}""")
+        return UnitSummary(multi, forced, [tuple(row) for row in rows])
+
+    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
+        by_day: dict[date, ArmCounts] = {}
+        for day, arm, units in self.scan.query(f"""
+                SELECT CAST(first_ts AS DATE), arm, count(*) FROM unit_rows
+                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL ORDER BY 1"""):
+            by_day.setdefault(day, [0] * self.arms[experiment])[arm] = units
+        return by_day
+
+    def segment_units(self, experiment: int, names: Sequence[str],
+                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
+        keys = ", ".join(f"coalesce({self.names.attribute_column(n)}, {_sql.text(NO_VALUE)})" for n in names)
+        grouped: dict[tuple[str, ...], ArmCounts] = {}
+        for row in self.scan.query(f"""
+                SELECT {keys}, arm, count(*) FROM unit_rows
+                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL""", "testing segments"):
+            grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
+        return grouped
+
+    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
+        columns = "".join(f", {self.names.attribute_column(a)}" for a in self.attributes)
+        # The sample is the units with the smallest hash of their id: the same on every run, whatever the threads.
+        sample = f"ORDER BY hash(unit), unit LIMIT {int(limit)}" if limit else ""
+        rows = self.scan.query(f"""
+            SELECT unit, arm, CAST(first_ts AS DATE), config, unit_type{columns}
+            FROM unit_rows WHERE {_sql.tested_units(experiment)} {sample}""", "replaying")
+        return [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in rows]
+
+    def close(self) -> None:
+        self.scan.close()

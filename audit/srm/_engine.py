@@ -1,0 +1,137 @@
+"""The counting-engine interface: exposure records in, small tables out.
+
+An engine reads the records (files, or an in-memory table it understands)
+and reduces them to one row per unit and experiment; the audit then asks it
+for small tables: counts per arm, per arm and day, per arm and segment, and
+a sample of units to replay. Only Python values cross this interface (no
+engine types), so statistics, diagnosis and rendering never know which
+engine counted. `audit/srm/_duckdb.py` is the default engine.
+"""
+
+from __future__ import annotations
+
+import importlib
+from datetime import date
+from typing import Any, Callable, Mapping, NamedTuple, Protocol, Sequence
+
+from .._errors import AuditError
+from ._designs import Design
+from ._results import Malformed
+
+Progress = Callable[[str, float], None]
+NO_VALUE = "(none)"  # the segment value of units without the attribute
+Segment = Mapping[str, str]  # attribute -> value (NO_VALUE for units without the attribute)
+ArmCounts = list[int]  # units per arm, in the design's arm order
+
+
+class CensusRow(NamedTuple):
+    """Records of one (problem, layer, experiment, arm, outside the dates) group, as logged."""
+
+    problem: str | None  # the kind of a malformed record, None for usable ones
+    layer: str | None
+    experiment: str | None
+    arm: str | None
+    outside: bool
+    records: int
+    repeats: int  # records that repeat another one exactly (same unit, arm and time)
+    epoch_times: bool  # some `ts` was an epoch number
+
+
+class UnitSummary(NamedTuple):
+    """Units of an experiment left out of its tests."""
+
+    multi_arm: int  # seen in more than one arm
+    forced: int  # forced into their arm (and in one arm only)
+    multi_arm_examples: list[tuple[str, int, int]]  # (unit, lowest arm index, highest arm index)
+
+
+class ReplayUnit(NamedTuple):
+    """A unit of an experiment as first exposed: what the SDK needs to recompute its arm."""
+
+    unit: str
+    arm: int
+    day: date
+    config: str | None  # the config version the record names
+    unit_type: str | None
+    attributes: tuple[str | None, ...]  # in the order of `UnitTables.attributes`
+
+
+class UnitTables(Protocol):
+    """What an engine made of the records: asked for small tables, one question at a time."""
+
+    sources: list[str]  # the files read (or a label for an in-memory table)
+    notes: list[str]  # how the sources were read, where the reading had to guess or skip
+    attributes: tuple[str, ...]  # the unit attributes kept, as asked
+    layer_logged: bool  # whether some source has the `layer` field
+
+    def other_columns(self) -> list[str]:
+        """Columns of the sources that are not fields of the exposure record (candidate segments)."""
+        ...
+
+    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
+        """The one pass over the records; `designs` give the date windows (records outside are only counted)."""
+        ...
+
+    def epoch_notes(self) -> list[str]:
+        """Which sources had epoch numbers as `ts`, read in which unit."""
+        ...
+
+    def malformed(self, counts_by_kind: Mapping[str, int]) -> Malformed:
+        """Malformed records, counted by kind (census counts plus what the reader rejected), a few located."""
+        ...
+
+    def place_units(self, designs: Sequence[Design]) -> None:
+        """Reduce to one row per unit and experiment (index into `designs`): its arm at first exposure."""
+        ...
+
+    def arm_units(self, experiment: int, within: Segment | None = None,
+                  without: Segment | None = None) -> ArmCounts:
+        """Tested units per arm, of a segment (`within`) or of everything but a segment (`without`)."""
+        ...
+
+    def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
+        ...
+
+    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
+        """Tested units per day of first exposure and arm."""
+        ...
+
+    def segment_units(self, experiment: int, names: Sequence[str],
+                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
+        """Tested units per value of the attributes `names` (a tuple of values) and arm."""
+        ...
+
+    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
+        """Up to `limit` tested units (all when 0), the same ones on every run."""
+        ...
+
+    def close(self) -> None:
+        ...
+
+
+class CountingEngine(Protocol):
+    """Reads exposure records into `UnitTables`."""
+
+    name: str
+
+    def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
+             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None) -> UnitTables:
+        """`source`: paths, globs and directories, or an in-memory table; `columns`: record field -> log column.
+
+        `keep_versions` keeps each unit's `config` and `unit_type` at first exposure, for the replay.
+        """
+        ...
+
+
+ENGINES = {"duckdb": "audit.srm._duckdb:DuckDBEngine"}  # name -> "module:class", imported when asked for
+
+
+def engine_named(name: str | CountingEngine) -> CountingEngine:
+    """The engine of that name (or the engine itself when one is given)."""
+    if not isinstance(name, str):
+        return name
+    if name not in ENGINES:
+        raise AuditError(f"unknown counting engine {name!r}; the engines are {', '.join(ENGINES)}")
+    module, _, cls = ENGINES[name].partition(":")
+    engine: CountingEngine = getattr(importlib.import_module(module), cls)()
+    return engine

@@ -1,0 +1,387 @@
+"""The SQL of the DuckDB engine, as pure functions: names and designs in, query text out.
+
+Every format is read into the same normalised columns (`exposure_rows`):
+the contract's field names, typed, one row per record. A record that cannot
+be used keeps its row, with `_problem` set to its kind (`unparseable`,
+`truncated`, `missing_field`, `wrong_type`) and `_detail` saying what is
+wrong, so nothing is dropped silently. JSON Lines are read as raw lines and
+parsed in SQL, one pass: that keeps every line, good or bad, and blank
+lines keep the line count right.
+
+Logs written by other systems bend the contract in ordinary ways; the
+reading step normalises them, in SQL (the macros of `NORMALISE`), the
+same way for every format:
+
+- `ts`: ISO-8601 / RFC 3339 with `T` or a space, `Z`, an offset (converted
+  to UTC) or no zone (taken as UTC, as the contract's times are UTC), any
+  fraction of a second, lower-case `t`/`z`, or a plain date (midnight UTC);
+  or a number of seconds, milliseconds, microseconds or nanoseconds since
+  1970, told apart by magnitude (below 10^11 seconds, below 10^14
+  milliseconds, below 10^17 microseconds, below 10^20 nanoseconds); which
+  unit was read in which file is said by the scan's epoch notes.
+- `forced`: true/false, t/f, yes/no, y/n, 1/0 (any case; a JSON boolean or
+  number, or text); empty or absent is false.
+- `unit` and the other names: a JSON or Parquet integer is read in
+  decimal (so `12345` hashes as "12345", as the hashing rule says); an
+  integral JSON float such as `12345.0` too.
+- Names are compared exactly: no case folding, no trimming. An arm logged
+  as "Control" or "control " is an unknown arm, reported as such.
+- CSV: the delimiter (`,` `;` tab `|`) is taken from the header line, a
+  UTF-8 byte order mark is skipped, CRLF and quoted fields are read;
+  column names are trimmed. A CSV whose lines end in both CRLF and LF
+  stops the run with an error naming the file: DuckDB's lenient CSV mode
+  would read it, but would also drop extra columns without a word. JSON Lines: a byte order mark, CRLF, mixed
+  line ends and blank lines are fine.
+- An empty file, or a CSV with a header and no rows, is skipped with a note.
+
+Values that still cannot be read (a `ts` of "yesterday", a `forced` of
+"maybe") are `wrong_type` records, counted and located by file and line.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Iterable, Mapping, Sequence
+
+from bucketing import RECORD_FIELDS
+
+from ._designs import Design
+from ._engine import NO_VALUE
+
+REQUIRED_FIELDS = ("unit", "experiment", "arm", "ts")
+TEXT_FIELDS = ("unit_type", "layer", "experiment", "arm", "config")
+EXAMPLES_PER_KIND = 5
+
+NORMALISE = """
+    CREATE TEMP MACRO iso_time(t) AS CASE WHEN ascii(t) BETWEEN 48 AND 57
+        THEN TRY_CAST(TRY_CAST(t AS TIMESTAMPTZ) AT TIME ZONE 'UTC' AS TIMESTAMP) END;
+    CREATE TEMP MACRO epoch_number(t) AS CASE WHEN regexp_full_match(t, '[0-9]+([.][0-9]+)?') THEN CAST(t AS DOUBLE) END;
+    CREATE TEMP MACRO epoch_unit(n) AS CASE WHEN n < 1e11 THEN 0 WHEN n < 1e14 THEN 1 WHEN n < 1e17 THEN 2
+        WHEN n < 1e20 THEN 3 END;
+    CREATE TEMP MACRO epoch_time(n) AS make_timestamp(CAST(n * [1e6, 1e3, 1, 1e-3][epoch_unit(n) + 1] AS BIGINT));
+    CREATE TEMP MACRO time_of(t) AS CASE WHEN contains(t, '-')
+        THEN coalesce(iso_time(t), iso_time(upper(trim(t)))) ELSE epoch_time(epoch_number(trim(t))) END;
+    CREATE TEMP MACRO time_epoch_unit(t) AS CASE WHEN NOT contains(t, '-') THEN epoch_unit(epoch_number(trim(t))) END;
+    CREATE TEMP MACRO flag_of(t) AS coalesce(TRY_CAST(t AS BOOLEAN),
+        CASE WHEN t IS NULL OR trim(t) = '' THEN false ELSE TRY_CAST(trim(t) AS BOOLEAN) END);
+    CREATE TEMP MACRO integer_text(t) AS CASE
+        WHEN regexp_full_match(t, '-?[0-9]+') THEN t
+        WHEN TRY_CAST(t AS DOUBLE) = trunc(TRY_CAST(t AS DOUBLE)) AND abs(TRY_CAST(t AS DOUBLE)) < 9007199254740992
+            THEN CAST(CAST(t AS DOUBLE) AS BIGINT)::VARCHAR END;
+"""
+TIME_EXPECTED = "expected an ISO-8601 time or an epoch number, found "
+FLAG_EXPECTED = "expected true or false (or yes/no, 1/0), found "
+
+
+@dataclass(frozen=True)
+class FieldNames:
+    """Which log column holds each field of the record, and the unit attributes kept (named `a_<index>`)."""
+
+    columns: Mapping[str, str]  # record field -> log column, for every field of the record
+    attributes: tuple[str, ...] = ()
+
+    @classmethod
+    def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str]) -> FieldNames:
+        return cls({name: (columns or {}).get(name, name) for name in RECORD_FIELDS},
+                   tuple(dict.fromkeys(attributes)))
+
+    def attribute_column(self, name: str) -> str:
+        return f"a_{self.attributes.index(name)}"
+
+
+@dataclass(frozen=True)
+class Select:
+    """A SELECT of the normalised columns, and whether its times are text (so epoch numbers may occur)."""
+
+    sql: str
+    times_as_text: bool
+
+
+def text(value: str) -> str:
+    """A SQL string literal."""
+    return "'" + value.replace("'", "''") + "'"
+
+
+def ident(name: str) -> str:
+    """A SQL identifier, quoted."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def file_list(paths: Sequence[str]) -> str:
+    return "[" + ", ".join(text(p) for p in paths) + "]"
+
+
+def raw_lines(paths: Sequence[str], options: str = "") -> str:
+    """JSON Lines files as one text column `line`, however their lines end."""
+    # strict_mode off: one column only, and it lets lines end in CRLF and LF within one file
+    return (f"read_csv({file_list(paths)}, columns={{'line': 'VARCHAR'}}, delim=chr(1), quote='', escape='', "
+            f"header=false, auto_detect=false, strict_mode=false{', ' + options if options else ''})")
+
+
+def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str, str], names: FieldNames,
+                      native: Iterable[str] = (), broken: tuple[str, str] | None = None, extra: str = "") -> Select:
+    """A SELECT of the normalised columns over `source`, from per-field text expressions and type checks.
+
+    `values[f]` is the field's value as text (NULL when absent), except
+    for the fields in `native`: a `ts` of a TIMESTAMP type or a `forced`
+    of BOOLEAN type, kept as they are. `kinds[f]` is NULL when the field's
+    value is acceptable, else what was found. Text times and flags are
+    read once, by the `NORMALISE` macros in an inner SELECT, and checked here.
+    `broken` is (kind, detail) for records that could not be parsed at all;
+    `extra` adds columns to the outer SELECT (it may use `_problem`).
+    """
+    kinds = dict(kinds)
+    native = set(native)
+    inner = []
+    if "ts" in native:
+        ts, epoch = f"CAST({values['ts']} AS TIMESTAMP)", "NULL::UTINYINT"
+    else:
+        inner += [f"time_of({values['ts']}) AS _ts_value", f"time_epoch_unit({values['ts']}) AS _ts_epoch"]
+        ts, epoch = "_ts_value", "_ts_epoch"
+        kinds["ts"] = f"CASE WHEN {ts} IS NULL THEN {text(TIME_EXPECTED)} || {values['ts']} END"
+    if "forced" in native:
+        forced = f"coalesce({values['forced']}, false)"
+    else:
+        inner.append(f"flag_of({values['forced']}) AS _forced_value")
+        forced = "_forced_value"
+        kinds["forced"] = f"CASE WHEN {forced} IS NULL THEN {text(FLAG_EXPECTED)} || {values['forced']} END"
+    problems = [broken] if broken else []
+    problems += [(f"CASE WHEN {kinds[n]} IS NOT NULL THEN 'wrong_type' END",
+                  f"'field ' || {text(repr(names.columns[n]))} || ': ' || {kinds[n]}")
+                 for n in RECORD_FIELDS if n in kinds]
+    problems += [(f"CASE WHEN {values[n]} IS NULL THEN 'missing_field' END",
+                  f"'field ' || {text(repr(names.columns[n]))} || ' is missing'") for n in REQUIRED_FIELDS]
+    problem = "coalesce(" + ", ".join(kind for kind, _ in problems) + ")"
+    detail = "CASE " + " ".join(f"WHEN {kind} IS NOT NULL THEN {message}" for kind, message in problems) + " END"
+    select = [f"{problem} AS _problem", f"{detail} AS _detail", f"{values['unit']} AS unit"]
+    select += [f"{values[n]} AS {n}" for n in TEXT_FIELDS]
+    select += [f"coalesce({forced}, false) AS forced", f"{ts} AS ts", f"{epoch} AS _ts_epoch"]
+    select += [f"{values['a:' + a]} AS a_{i}" for i, a in enumerate(names.attributes)]
+    if extra:
+        select.append(extra)
+    source = f"(SELECT *, {', '.join(inner)} FROM {source})" if inner else source
+    return Select(f"SELECT {', '.join(select)} FROM {source}", "ts" not in native)
+
+
+def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Select:
+    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`."""
+    fields = [names.columns[n] for n in RECORD_FIELDS] + list(names.attributes)
+    json_paths = "[" + ", ".join(text('$."' + n.replace('"', '\\"') + '"') for n in fields) + "]"
+    index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in names.attributes])}
+    values = {k: f"v[{i}]" for k, i in index.items()}
+    types = {k: f"t[{i}]" for k, i in index.items()}
+    values["unit"] = f"CASE WHEN {types['unit']} = 'VARCHAR' THEN {values['unit']} ELSE integer_text({values['unit']}) END"
+    kinds = {"unit": f"CASE WHEN {types['unit']} <> 'NULL' AND {values['unit']} IS NULL "
+                     f"THEN 'expected a string or an integer, found ' || lower({types['unit']}) END"}
+    kinds.update({n: f"CASE WHEN {types[n]} NOT IN ('VARCHAR', 'NULL', 'BIGINT', 'UBIGINT') "
+                     f"THEN 'expected a string, found ' || lower({types[n]}) END" for n in TEXT_FIELDS})
+    cut_short = "starts_with(ltrim(line), '{') AND NOT ends_with(rtrim(line), '}')"
+    broken = (f"CASE WHEN NOT is_object THEN CASE WHEN {cut_short} THEN 'truncated' ELSE 'unparseable' END END",
+              f"CASE WHEN {cut_short} THEN 'record cut short' ELSE 'not a JSON object' END")
+    source = raw_lines(paths, f"filename=true, store_rejects=true, rejects_table='{rejects}_errors', "
+                              f"rejects_scan='{rejects}_scans'")
+    parsed = f"""(
+        SELECT filename, line, is_object,
+               CASE WHEN is_object THEN json_extract_string(line, {json_paths}) END AS v,
+               CASE WHEN is_object THEN json_type(line, {json_paths}) END AS t
+        FROM (
+            SELECT filename, line, CASE WHEN json_valid(line) THEN json_type(line) = 'OBJECT' ELSE false END AS is_object
+            FROM {source}
+            WHERE line IS NOT NULL AND trim(line) <> ''
+        )
+    )"""
+    extra = "filename AS _file, NULL::BIGINT AS _line, CASE WHEN _problem IS NOT NULL THEN left(line, 300) END AS _text"
+    return normalised_select(parsed, values, kinds, names, broken=broken, extra=extra)
+
+
+def jsonl_keys(paths: Sequence[str], sample_lines: int) -> str:
+    """The keys of the first `sample_lines` JSON objects of the files."""
+    return f"""
+        SELECT DISTINCT unnest(json_keys(line)) FROM (
+            SELECT line FROM {raw_lines(paths)}
+            WHERE json_valid(line) AND json_type(line) = 'OBJECT' LIMIT {int(sample_lines)})"""
+
+
+NATIVE_TYPES = {"ts": "TIMESTAMP", "forced": "BOOLEAN"}  # kept as they are: formatting them as text costs a lot
+
+
+def typed_select(source: str, present: Mapping[str, str], names: FieldNames, extra: str) -> Select:
+    """The normalised SELECT over a typed source (CSV read as text, Parquet, or an in-memory table).
+
+    `present` maps each column of the source to its DuckDB type.
+    """
+    values: dict[str, str] = {}
+    kinds: dict[str, str] = {}
+    native = []
+    for name in RECORD_FIELDS:
+        column = names.columns[name]
+        kind = present.get(column)
+        if kind is None:
+            values[name] = "NULL::VARCHAR"
+        elif name in NATIVE_TYPES and kind.startswith(NATIVE_TYPES[name]):
+            values[name] = ident(column)
+            native.append(name)
+        elif kind == "VARCHAR":
+            values[name] = ident(column)
+        elif name == "unit" and kind in ("DOUBLE", "FLOAT"):
+            values[name] = f"integer_text(CAST({ident(column)} AS VARCHAR))"
+            kinds[name] = (f"CASE WHEN {ident(column)} IS NOT NULL AND {values[name]} IS NULL "
+                           f"THEN 'expected a string or an integer, found ' || {ident(column)} END")
+        else:
+            values[name] = f"CAST({ident(column)} AS VARCHAR)"
+    for attr in names.attributes:
+        values["a:" + attr] = f"CAST({ident(attr)} AS VARCHAR)" if attr in present else "NULL::VARCHAR"
+    return normalised_select(source, values, kinds, names, native, extra=extra)
+
+
+def csv_select(path: str, delimiter: str, head: Sequence[str], names: FieldNames, rejects: str) -> Select:
+    """One CSV file, every column read as text, with the delimiter and column names of its header."""
+    options = f"delim={text(delimiter)}, quote='\"', escape='\"', header=true, auto_detect=false"
+    columns = "{" + ", ".join(f"{text(c)}: 'VARCHAR'" for c in head) + "}"
+    source = (f"read_csv({text(path)}, {options}, columns={columns}, filename=true, "
+              f"store_rejects=true, rejects_table='{rejects}_errors', rejects_scan='{rejects}_scans')")
+    fields = ", ".join(f"coalesce({ident(c)}, '')" for c in head)
+    extra = (f"filename AS _file, NULL::BIGINT AS _line, "
+             f"CASE WHEN _problem IS NOT NULL THEN left(concat_ws({text(delimiter)}, {fields}), 300) END AS _text")
+    return typed_select(source, {c: "VARCHAR" for c in head}, names, extra)
+
+
+def parquet_source(paths: Sequence[str]) -> str:
+    return f"read_parquet({file_list(paths)}, filename=true, file_row_number=true, union_by_name=true)"
+
+
+def parquet_select(source: str, present: Mapping[str, str], names: FieldNames) -> Select:
+    return typed_select(source, present, names, "filename AS _file, file_row_number + 1 AS _line, NULL AS _text")
+
+
+def table_select(view: str, present: Mapping[str, str], names: FieldNames, label: str) -> Select:
+    """An in-memory table registered as `view`; its records are located by `label` only."""
+    return typed_select(view, present, names, f"{text(label)} AS _file, NULL::BIGINT AS _line, NULL AS _text")
+
+
+# -- the unit tables -------------------------------------------------------------------------------
+
+
+def _match(design: Design, layer_logged: bool) -> str:
+    layer = f"(layer IS NULL OR layer = {text(design.layer)})" if layer_logged else "true"
+    return f"experiment = {text(design.experiment)} AND {layer}"
+
+
+def experiment_case(designs: Sequence[Design], layer_logged: bool) -> str:
+    """A record's experiment: its index in `designs`, NULL when it is none of them."""
+    if not designs:
+        return "NULL::INTEGER"
+    return "CASE " + " ".join(f"WHEN {_match(d, layer_logged)} THEN {i}" for i, d in enumerate(designs)) + " END"
+
+
+def arm_case(designs: Sequence[Design], layer_logged: bool) -> str:
+    """A record's arm: its index in its design's arms, NULL when unknown."""
+    if not designs:
+        return "NULL::INTEGER"
+    cases = []
+    for d in designs:
+        arms = " ".join(f"WHEN arm = {text(a)} THEN {i}" for i, a in enumerate(d.arms))
+        cases.append(f"WHEN {_match(d, layer_logged)} THEN CASE {arms} END")
+    return "CASE " + " ".join(cases) + " END"
+
+
+def outside_case(designs: Sequence[Design], layer_logged: bool) -> str:
+    """Whether a record falls outside its experiment's dates."""
+    if not any(d.start or d.end for d in designs):
+        return "false"
+    cases = []
+    for d in designs:
+        window = []
+        if d.start:
+            window.append(f"CAST(ts AS DATE) < DATE '{d.start.isoformat()}'")
+        if d.end:
+            window.append(f"CAST(ts AS DATE) > DATE '{d.end.isoformat()}'")
+        cases.append(f"WHEN {_match(d, layer_logged)} THEN {' OR '.join(window) or 'false'}")
+    return f"coalesce(CASE {' '.join(cases)} END, false)"
+
+
+def unit_arms(outside: str, kept: Sequence[str], epoch_times: bool) -> str:
+    """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
+
+    Each row has the unit's records, how many of them repeat another one
+    exactly (same unit, arm and time), and its first exposure in that arm:
+    the time and the `kept` columns then. Malformed records and records
+    outside their experiment's dates are only counted: their rows have no unit.
+    """
+    values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
+    epoch = "bool_or(_ts_epoch IS NOT NULL)" if epoch_times else "false"
+    return f"""
+        CREATE TEMP TABLE unit_arms AS
+        SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
+        FROM (
+            SELECT _problem, layer, experiment, arm, outside, unit, count(*) AS records, min(ts) AS first_ts,
+                   arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
+                   list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch} AS epoch_times
+            FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
+                  FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
+                               _ts_epoch, {values} AS kept
+                        FROM exposure_rows))
+            GROUP BY _problem, layer, experiment, arm, outside, unit)"""
+
+
+CENSUS = """
+    SELECT _problem, layer, experiment, arm, outside, sum(records), sum(repeats), bool_or(epoch_times)
+    FROM unit_arms GROUP BY ALL"""
+
+
+def unit_rows(designs: Sequence[Design], layer_logged: bool, kept: Sequence[str]) -> str:
+    """One row per unit and experiment, `unit_rows`: its arm at first exposure, and whether it saw several arms.
+
+    A unit seen in several arms is left out of every count, so which of
+    them comes first when two exposures share their time does not matter.
+    """
+    return f"""
+        CREATE TEMP TABLE unit_rows AS
+        SELECT * EXCLUDE (first_kept), arm_low <> arm_high AS multi
+               {''.join(f', first_kept[{i + 1}] AS {c}' for i, c in enumerate(kept))}
+        FROM (
+            SELECT exp, unit, min(first_ts) AS first_ts, arg_min(arm, first_ts) AS arm,
+                   arg_min(first_kept, first_ts) AS first_kept, min(arm) AS arm_low, max(arm) AS arm_high,
+                   bool_or(forced) AS forced
+            FROM (SELECT {experiment_case(designs, layer_logged)} AS exp, {arm_case(designs, layer_logged)} AS arm,
+                         unit, first_ts, first_kept, forced
+                  FROM unit_arms WHERE unit IS NOT NULL)
+            WHERE arm IS NOT NULL
+            GROUP BY exp, unit)"""
+
+
+def segment_where(segment: Mapping[str, str], names: FieldNames) -> str:
+    """Units of a segment (attribute -> value; `NO_VALUE` for units without the attribute)."""
+    if not segment:
+        return "true"
+    return " AND ".join(f"coalesce({names.attribute_column(k)}, {text(NO_VALUE)}) = {text(v)}"
+                        for k, v in segment.items())
+
+
+def tested_units(experiment: int, where: str = "true") -> str:
+    """The units an experiment's tests count: one arm only, not forced."""
+    return f"exp = {int(experiment)} AND NOT multi AND NOT forced AND ({where})"
+
+
+EPOCH_NOTES = """
+    SELECT _file, _ts_epoch, count(*), min(ts), max(ts) FROM exposure_rows
+    WHERE _problem IS NULL AND _ts_epoch IS NOT NULL GROUP BY ALL ORDER BY 1, 2"""
+
+
+def malformed_examples(per_kind: int = EXAMPLES_PER_KIND) -> str:
+    """The first malformed records of each kind, in file and line order."""
+    return f"""
+        SELECT _problem, _file, _line, _detail, _text FROM (
+            SELECT *, row_number() OVER (PARTITION BY _problem ORDER BY _file, _line) AS n
+            FROM exposure_rows WHERE _problem IS NOT NULL)
+        WHERE n <= {int(per_kind)} ORDER BY _problem, n"""
+
+
+def rejected_rows(rejects: str) -> str:
+    """Rows a CSV reader rejected, one per file line (a row may have several errors; each scan logs it again)."""
+    return f"""
+        SELECT CASE WHEN e.error_type = 'MISSING COLUMNS' THEN 'truncated' ELSE 'unparseable' END,
+               s.file_path, e.line, e.error_message, left(e.csv_line, 300)
+        FROM {rejects}_errors e JOIN {rejects}_scans s USING (scan_id, file_id)
+        QUALIFY row_number() OVER (PARTITION BY s.file_path, e.line ORDER BY e.scan_id, e.column_idx) = 1
+        ORDER BY 2, 3"""
