@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audit._stats import holm_adjust
+from audit.srm._stats import holm_adjust
 from audit.srm._exact import split_tests
 from audit.srm._per_unit import duplicate_logging_evidence
 

@@ -7,7 +7,7 @@ import pytest
 from scipy import stats
 
 from audit.srm._exact import (
-    MONTE_CARLO_DRAWS, _exact_multinomial_p_value, binomial_p_values, compositions, split_test, split_tests,
+    _exact_multinomial_p_value, binomial_p_values, compositions, split_test, split_tests,
 )
 
 

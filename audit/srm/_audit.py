@@ -14,7 +14,10 @@ from __future__ import annotations
 from collections import defaultdict
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from datetime import date
 from typing import Any, Iterable, Mapping, Sequence, Union
+
+import numpy as np
 
 from bucketing import Config, load_config
 
@@ -22,10 +25,12 @@ from .._errors import AuditError, LogError
 from . import _stats
 from ._designs import Design, Expectation, designs_from_config, designs_from_logs
 from ._diagnosis import diagnose
-from ._engine import CensusRow, CountingEngine, Progress, UnitTables, engine_named
+from ._engine import CensusRow, CountingEngine, Progress, Segment, UnitTables, engine_named
+from ._exact import split_test
+from ._per_unit import duplicate_logging_evidence
 from ._replay import replay, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
-from ._segments import day_results, localise, test_segments, without_worst
+from ._segments import localise, mismatch_start, test_segments, timeline, without_worst
 
 DEFAULT_REPLAY_UNITS = 50_000
 EXAMPLES = 5
@@ -211,39 +216,71 @@ def _near_miss_notes(unknown: Sequence[UnknownRecords], designs: Sequence[Design
     return notes
 
 
+class _Splits:
+    """An experiment's units per arm, from the engine's tables (the `Splits` of `_segments`)."""
+
+    def __init__(self, tables: UnitTables, experiment: int, design: Design) -> None:
+        self.tables = tables
+        self.experiment = experiment
+        self.shares = np.asarray(design.shares)
+
+    def split(self, within: Segment | None = None, without: Segment | None = None) -> np.ndarray:
+        return np.asarray(self.tables.arm_units(self.experiment, within=within, without=without))
+
+    def daily(self, within: Segment | None = None) -> dict[date, np.ndarray]:
+        return {day: np.asarray(c) for day, c in self.tables.day_units(self.experiment, within=within).items()}
+
+    def by_value(self, names: Sequence[str], within: Segment | None = None) -> dict[tuple[str, ...], np.ndarray]:
+        return {values: np.asarray(c) for values, c in self.tables.segment_units(self.experiment, names,
+                                                                                  within=within).items()}
+
+
 def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, outside_records: int,
                 logged: list[list[int]]) -> ExperimentResult:
     """One experiment's test; `logged` gives, per arm, its records and its repeated records."""
-    counts = tables.arm_units(index)
+    splits = _Splits(tables, index, design)
+    overall = splits.split()
+    counts = [int(c) for c in overall]
     summary = tables.unit_summary(index, EXAMPLES)
-    fit = _stats.chi_square_fit(counts, design.shares)
+    test = split_test(overall, splits.shares)
     total = sum(counts)
+    shares = _stats.mixture_shares(overall, splits.shares)
     arms = []
-    for name, gap, (records, repeats) in zip(design.arms, _stats.arm_gaps(counts, design.shares), logged):
+    for name, gap, (records, repeats) in zip(design.arms, _stats.arm_gaps(counts, shares), logged):
         low, high = _stats.share_interval(gap.observed, total)
         arms.append(ArmResult(name, gap.observed, gap.expected_share, gap.observed_share, gap.expected,
                               gap.excess, gap.ratio, low, high, records, repeats))
+    histogram = tables.records_per_unit(index) if total else {}
+    duplicates = duplicate_logging_evidence(
+        list(histogram), np.array(list(histogram.values()), dtype=np.int64).T.reshape(len(design.arms), -1),
+        [a.records for a in arms], [a.duplicate_records for a in arms], plan.threshold)
     result = ExperimentResult(
-        layer=design.layer, experiment=design.experiment, units=total, arms=tuple(arms), chi2=fit.statistic,
-        df=fit.df, p_value=fit.p_value, srm=fit.p_value < plan.threshold, records=sum(a.records for a in arms),
+        layer=design.layer, experiment=design.experiment, units=total, arms=tuple(arms), chi2=test.statistic,
+        df=test.df, p_value=test.p_value, srm=test.p_value < plan.threshold, records=sum(a.records for a in arms),
         duplicate_records=sum(a.duplicate_records for a in arms), multi_arm_units=summary.multi_arm,
         multi_arm_examples=tuple({"unit": unit, "arms": [design.arms[low], design.arms[high]]}
                                  for unit, low, high in summary.multi_arm_examples),
         forced_units=summary.forced, outside_window_records=outside_records,
-        records_p_value=_stats.chi_square_fit([a.records for a in arms], design.shares).p_value,
+        records_p_value=duplicates.rank_test.p_value, test=test.test, mc_error=test.mc_error,
+        closed_arm_units=test.closed_units,
+        duplicate_arm=design.arms[duplicates.arm] if duplicates.arm is not None else None,
+        duplicate_basis=duplicates.basis,
     )
     if total == 0:
         return result
-    days = day_results(design, tables.day_units(index))
-    crossing = _stats.first_crossing([d.cumulative_p for d in days], plan.threshold)
-    sequential = _stats.first_crossing([d.sequential_p for d in days], plan.threshold)
-    segments = test_segments(design, counts, _segment_counts(tables, plan, index), plan.threshold)
+    segments = test_segments(splits, overall, _segment_counts(splits, plan), plan.threshold)
+    scope = "overall" if result.srm else "segment" if any(s.srm for s in segments) else None
+    dated = timeline(splits, plan.threshold)
+    sequential = _stats.first_crossing([d.sequential_p for d in dated.days], plan.threshold)
+    start = mismatch_start(segments, scope)
     result = replace(
-        result, days=tuple(days), first_srm_day=days[crossing].day if crossing is not None else None,
-        sequential_p_value=days[-1].sequential_p if days else 1.0,
-        first_sequential_srm_day=days[sequential].day if sequential is not None else None,
-        without_worst=without_worst(design, counts, segments, plan.threshold),
-        localisation=localise(tables, index, design, segments, _names(plan), plan.threshold) if result.srm else None)
+        result, srm=scope is not None, srm_scope=scope, days=tuple(dated.days),
+        first_srm_day=dated.first_crossing if scope else None,
+        onset_day=dated.onset_day if scope else None, onset_interval=dated.onset_interval if scope else None,
+        sequential_p_value=dated.days[-1].sequential_p if dated.days else 1.0,
+        first_sequential_srm_day=dated.days[sequential].day if sequential is not None else None,
+        without_worst=without_worst(splits, overall, segments, plan.threshold),
+        localisation=localise(splits, start, _names(plan), plan.threshold) if start is not None else None)
     if plan.replay_configs:
         result = _with_replay(tables, plan, index, design, result, segments)
     else:
@@ -255,11 +292,11 @@ def _names(plan: _Plan) -> list[str]:
     return list(dict.fromkeys(name for term in plan.tested_terms() for name in term))
 
 
-def _segment_counts(tables: UnitTables, plan: _Plan, index: int) -> list[tuple[tuple[str, ...], dict]]:
-    """Arm counts per value of each segment term; an automatic term with too many values is dropped, with a note."""
+def _segment_counts(splits: _Splits, plan: _Plan) -> list[tuple[tuple[str, ...], dict]]:
+    """Splits per value of each segment term; an automatic term with too many values is dropped, with a note."""
     grouped = []
     for term in plan.tested_terms():
-        by_value = tables.segment_units(index, term)
+        by_value = splits.by_value(term)
         if term in plan.automatic and len(by_value) > AUTO_MAX_VALUES:
             plan.crowded.add(term)
             plan.notes.append(f"automatic segments: column {term[0]!r} has more than {AUTO_MAX_VALUES} values, "

@@ -119,6 +119,14 @@ class DuckDBUnitTables:
             grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
         return grouped
 
+    def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:
+        histogram: dict[int, ArmCounts] = {}
+        for records, arm, units in self.scan.query(f"""
+                SELECT records, arm, count(*) FROM unit_rows WHERE {_sql.tested_units(experiment)} GROUP BY ALL""",
+                "counting records per unit"):
+            histogram.setdefault(records, [0] * self.arms[experiment])[arm] = units
+        return histogram
+
     def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
         columns = "".join(f", {self.names.attribute_column(a)}" for a in self.attributes)
         # The sample is the units with the smallest hash of their id: the same on every run, whatever the threads.

@@ -101,6 +101,10 @@ class UnitTables(Protocol):
         """Tested units per value of the attributes `names` (a tuple of values) and arm."""
         ...
 
+    def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:
+        """Tested units per number of records they logged (in the experiment's known arms, inside its dates) and arm."""
+        ...
+
     def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
         """Up to `limit` tested units (all when 0), the same ones on every run."""
         ...

@@ -50,6 +50,7 @@ import math
 from typing import NamedTuple, Sequence
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special, stats
 
 COCHRAN_MINIMUM = 5.0  # Cochran (1954): chi-square when every expected count is at least 5
@@ -135,9 +136,9 @@ def _first_true(low: np.ndarray, high: np.ndarray, predicate) -> np.ndarray:
     return low
 
 
-def split_test(observed: Sequence, shares: Sequence, *, seed: int = MONTE_CARLO_SEED) -> SplitTest:
+def split_test(observed: ArrayLike, shares: ArrayLike, *, seed: int = MONTE_CARLO_SEED) -> SplitTest:
     """Test units per arm against the design: one row of counts and shares, or one row per design version."""
-    return split_tests([observed], shares, seed=seed).at(0)
+    return split_tests(np.asarray(observed)[None], shares, seed=seed).at(0)
 
 
 class SplitTests(NamedTuple):
@@ -167,7 +168,7 @@ class SplitTests(NamedTuple):
                    np.array(columns[6], dtype=float))
 
 
-def split_tests(observed: Sequence, shares: Sequence, *, seed: int = MONTE_CARLO_SEED) -> SplitTests:
+def split_tests(observed: ArrayLike, shares: ArrayLike, *, seed: int = MONTE_CARLO_SEED) -> SplitTests:
     """`split_test` over many splits (segments) that share a design: observed[segment][(version,)] arm."""
     counts = np.asarray(observed, dtype=np.int64)
     design = np.asarray(shares, dtype=float)

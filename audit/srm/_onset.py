@@ -18,9 +18,10 @@ first day with such units is the onset.
 
 from __future__ import annotations
 
-from typing import NamedTuple, Sequence
+from typing import NamedTuple
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special, stats
 
 INTERVAL_LEVEL = 0.95
@@ -37,7 +38,7 @@ class Onset(NamedTuple):
     method: str  # "change-point" or "first-closed-arm-unit"
 
 
-def onset(daily: Sequence, shares: Sequence) -> Onset | None:
+def onset(daily: ArrayLike, shares: ArrayLike) -> Onset | None:
     """The onset of a break in daily counts of new units.
 
     `daily[day][arm]` with `shares[arm]` for one design, or
@@ -96,6 +97,8 @@ def _profile(counts: np.ndarray, design: np.ndarray) -> np.ndarray:
             break
     broken_shares = design[None, :, :] * factors[:, None, :]
     broken_shares /= np.maximum(broken_shares.sum(axis=2, keepdims=True), 1e-300)
-    broken_ll = np.einsum("td,tdv->t", after, special.xlogy(counts[None], broken_shares[:, None]).sum(axis=3))
+    with np.errstate(invalid="ignore"):  # days before the break may have -inf under a break's shares: masked out
+        terms = special.xlogy(counts[None], broken_shares[:, None]).sum(axis=3)
+    broken_ll = np.where(after[:, :, None], terms, 0.0).sum(axis=(1, 2))
     healthy_ll = np.concatenate([[0.0], np.cumsum(design_ll)])  # healthy_ll[t]: days before t follow the design
     return np.concatenate([healthy_ll[:days] + broken_ll, [healthy_ll[days]]])

@@ -21,15 +21,15 @@ the design: the p-value is 0 from that day on.
 from __future__ import annotations
 
 import math
-from typing import Sequence
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special
 
 DEFAULT_CONCENTRATION = 1000.0  # prior share SD about 1.6 points at 50/50: tuned to the small imbalances SRM is about
 
 
-def sequential_p_values(daily: Sequence, shares: Sequence, concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
+def sequential_p_values(daily: ArrayLike, shares: ArrayLike, concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
     """Anytime-valid p-values after each day, from the counts of units new that day.
 
     `daily[day][arm]` with `shares[arm]` for one design, or
@@ -54,7 +54,7 @@ def sequential_p_values(daily: Sequence, shares: Sequence, concentration: float 
               + np.where(closed, 0.0, special.gammaln(alphas + opened) - special.gammaln(alphas)
                          - opened * log_shares).sum(axis=2)).sum(axis=1)
     best, out = 1.0, []
-    for log_evidence, broken in zip(log_bf, impossible):
+    for log_evidence, broken in zip(log_bf.tolist(), np.asarray(impossible).tolist()):
         best = 0.0 if broken else min(best, math.exp(-log_evidence) if log_evidence > -700 else 1.0)
         out.append(best)
     return out

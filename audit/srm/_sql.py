@@ -330,7 +330,7 @@ CENSUS = """
 
 
 def unit_rows(designs: Sequence[Design], layer_logged: bool, kept: Sequence[str]) -> str:
-    """One row per unit and experiment, `unit_rows`: its arm at first exposure, and whether it saw several arms.
+    """One row per unit and experiment, `unit_rows`: its arm at first exposure, its records, and whether it saw several arms.
 
     A unit seen in several arms is left out of every count, so which of
     them comes first when two exposures share their time does not matter.
@@ -342,9 +342,9 @@ def unit_rows(designs: Sequence[Design], layer_logged: bool, kept: Sequence[str]
         FROM (
             SELECT exp, unit, min(first_ts) AS first_ts, arg_min(arm, first_ts) AS arm,
                    arg_min(first_kept, first_ts) AS first_kept, min(arm) AS arm_low, max(arm) AS arm_high,
-                   bool_or(forced) AS forced
+                   bool_or(forced) AS forced, sum(records) AS records
             FROM (SELECT {experiment_case(designs, layer_logged)} AS exp, {arm_case(designs, layer_logged)} AS arm,
-                         unit, first_ts, first_kept, forced
+                         unit, first_ts, first_kept, forced, records
                   FROM unit_arms WHERE unit IS NOT NULL)
             WHERE arm IS NOT NULL
             GROUP BY exp, unit)"""

@@ -11,7 +11,7 @@ import time
 import numpy as np
 from scipy import stats
 
-from audit._stats import DEFAULT_THRESHOLD
+from audit.srm._stats import DEFAULT_THRESHOLD
 from audit.srm._exact import COCHRAN_MINIMUM, binomial_p_values, split_tests
 from audit.srm._onset import onset
 from audit.srm._sequential import sequential_p_values
