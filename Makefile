@@ -20,10 +20,11 @@ lint: $(STAMP)
 demo: $(STAMP)
 	$(BIN)/sortition demo --out demo-output
 
-# The tests drive a real headless browser; scripts/system-tools.sh installs
-# Debian's chromium when it is missing (as root), or says what to install.
+# The tests drive a real headless browser and run Apache Spark in local mode;
+# scripts/system-tools.sh installs Debian's chromium and Java 17 when they are
+# missing (as root), or says what to install.
 test: $(STAMP)
-	bash scripts/system-tools.sh chromium
+	bash scripts/system-tools.sh chromium java
 	$(BIN)/python -m pytest
 
 bench: $(STAMP)

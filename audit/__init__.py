@@ -10,17 +10,11 @@ The command line (`sortition ...`) lives in `audit.cli`. Subpackages, one
 direction of imports: `cli` -> `render` -> `checks`, `srm` -> `bucketing`.
 """
 
-from importlib import metadata
 from typing import TYPE_CHECKING
 
-from bucketing import SortitionError
+from bucketing import SortitionError, __version__
 
 from ._errors import AuditError, LogError, MissingFieldError
-
-try:
-    __version__ = metadata.version("sortition")
-except metadata.PackageNotFoundError:  # running from a source tree that was never installed
-    __version__ = "0+unknown"
 
 _LAZY = {  # public names whose modules load NumPy, SciPy or DuckDB: imported on first use
     "audit_logs": "audit.srm", "AuditResult": "audit.srm", "ExperimentResult": "audit.srm",

@@ -10,9 +10,11 @@ Everything public is named in `__all__`; modules whose names start with an
 underscore are private and may change without notice.
 """
 
+from importlib import metadata as _metadata
+
 from ._assigner import Assigner, Assignment, LayerAssignment
 from ._config import Config, format_path
-from ._errors import ConfigError, Location, Problem, SortitionError
+from ._errors import ConfigError, Location, Problem, SortitionError, did_you_mean
 from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, HeldOut, HoldoutCheck, NoExperiment,
                        NotEligible, NotRunning, Step)
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
@@ -22,7 +24,13 @@ from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_
 from ._rules import RULES
 from ._watch import ConfigWatcher, ReloadAttempt
 
+try:  # one version for the distribution, the SDK's and the audit's
+    __version__ = _metadata.version("sortition")
+except _metadata.PackageNotFoundError:  # a source tree that was never installed
+    __version__ = "0+unknown"
+
 __all__ = [
+    "__version__",
     "Assigner",
     "Assignment",
     "LayerAssignment",
@@ -63,6 +71,7 @@ __all__ = [
     "NotEligible",
     "Assigned",
     "ConfigError",
+    "did_you_mean",
     "Location",
     "Problem",
     "SortitionError",

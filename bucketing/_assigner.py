@@ -187,7 +187,8 @@ class Assigner:
         self._unknown_unit_types: set[Any] = set()
         self._unknown_lock = threading.Lock()
         key = pseudonym_key(pseudonym_key_env) if pseudonym_key_env is not None else None
-        self._exposer = Exposer(sink, self.errors, record_attributes=frozenset(record_attributes),
+        named = frozenset([record_attributes] if isinstance(record_attributes, str) else record_attributes)
+        self._exposer = Exposer(sink, self.errors, record_attributes=named,
                                 pseudonym_key=key, dedupe=dedupe, dedupe_limit=dedupe_limit) if sink is not None else None
 
     @property
@@ -303,7 +304,11 @@ class Assigner:
         attributes and each counts under "attributes_ran_out".
         """
         when = day if day is not None else date.fromordinal(int(time() // 86400) + EPOCH_ORDINAL)
-        attr_iter = iter(attrs) if attrs is not None else None
+        try:
+            attr_iter = iter(attrs) if attrs is not None else None
+        except TypeError:
+            self.errors["attributes"] += 1
+            attr_iter = None
         for unit in ids:
             unit_attrs = None
             if attr_iter is not None:

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
-from typing import Union
+from typing import Iterable, Union
 
 Location = tuple[Union[str, int], ...]
 
@@ -34,6 +35,24 @@ class Problem:
         where = f"{self.file}:{self.line}:{self.column}"
         field = f" {self.path}:" if self.path else ""
         return f"{where}:{field} {self.message} [{self.rule}]"
+
+
+def shown(value: object, limit: int = 60) -> str:
+    """A value as a message quotes it: its repr, cut to `limit` characters so one hostile value cannot flood a line."""
+    try:
+        text = repr(value)
+    except ValueError:  # an integer of more digits than Python converts to text
+        return f"<{type(value).__name__} too long to show>"
+    return text if len(text) <= limit else text[:limit - 4] + "...'"
+
+
+def did_you_mean(word: str, choices: Iterable[str]) -> str:
+    """" (did you mean 'x'?)" for the choice closest to a misspelt word, or "" when none is close.
+
+    For messages about a name that matches nothing: a key, a status, an arm, a layer.
+    """
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
+    return f" (did you mean {close[0]!r}?)" if close else ""
 
 
 class ConfigError(SortitionError):

@@ -26,6 +26,11 @@ def _bucket(prefix: str, unit: str) -> int:
     return mmh3.hash(prefix + unit, 0, False) % BUCKETS
 
 
+def _shown(value: Any) -> str:
+    """Text for a terminal: printable text as it is, anything else (control characters included) as its repr."""
+    return value if isinstance(value, str) and value.isprintable() and value else repr(value)
+
+
 def _plain(value: Any) -> Any:
     if isinstance(value, date):
         return value.isoformat()
@@ -53,6 +58,10 @@ class Step:
     def forced(self) -> bool:
         return False
 
+    def describe(self) -> str:
+        """One line for people: what decided, with its numbers."""
+        raise NotImplementedError
+
     def to_dict(self) -> dict[str, Any]:
         return {"reason": self.reason, **{f.name: _plain(getattr(self, f.name)) for f in fields(self)}}
 
@@ -73,6 +82,9 @@ class Forced(Step):
     def forced(self) -> bool:
         return True
 
+    def describe(self) -> str:
+        return f"forced: {self.experiment} / {self.arm} (overrides name this unit)"
+
 
 @dataclass(frozen=True)
 class HeldOut(Step):
@@ -82,12 +94,18 @@ class HeldOut(Step):
     holdout_bucket: int
     cut: int
 
+    def describe(self) -> str:
+        return f"held out: holdout bucket {self.holdout_bucket} < cut {self.cut}"
+
 
 @dataclass(frozen=True)
 class NoExperiment(Step):
     """No experiment of the layer has a bucket range containing the unit's layer bucket."""
 
     reason: ClassVar[str] = "no_experiment"
+
+    def describe(self) -> str:
+        return "no experiment: this bucket is in no experiment's ranges"
 
 
 @dataclass(frozen=True)
@@ -97,6 +115,9 @@ class NotRunning(Step):
     reason: ClassVar[str] = "not_running"
     experiment: str
     status: str
+
+    def describe(self) -> str:
+        return f"not running: {self.experiment} owns this bucket but is {self.status}"
 
 
 @dataclass(frozen=True)
@@ -108,6 +129,9 @@ class BeforeStart(Step):
     start: date
     day: date
 
+    def describe(self) -> str:
+        return f"before start: {self.experiment} starts {self.start} (day {self.day})"
+
 
 @dataclass(frozen=True)
 class AfterEnd(Step):
@@ -117,6 +141,9 @@ class AfterEnd(Step):
     experiment: str
     end: date
     day: date
+
+    def describe(self) -> str:
+        return f"after end: {self.experiment} ended {self.end} (day {self.day})"
 
 
 @dataclass(frozen=True)
@@ -128,6 +155,11 @@ class NotEligible(Step):
     attribute: str
     value: Any
     rule: Any
+
+    def describe(self) -> str:
+        rule = "in [" + ", ".join(_shown(v) for v in self.rule) + "]" if isinstance(self.rule, list) else self.rule
+        value = "missing" if self.value is None else _shown(self.value)
+        return f"not eligible for {self.experiment}: {_shown(self.attribute)} is {value}, rule {rule}"
 
 
 @dataclass(frozen=True)
@@ -142,6 +174,9 @@ class Assigned(Step):
     @property
     def experiment_and_arm(self) -> tuple[str | None, str | None]:
         return self.experiment, self.arm
+
+    def describe(self) -> str:
+        return f"assigned: {self.experiment} / {self.arm} (arm bucket {self.arm_bucket})"
 
 
 REASONS = tuple(cls.reason for cls in (Forced, HeldOut, NoExperiment, NotRunning, BeforeStart, AfterEnd,
@@ -176,6 +211,24 @@ class Explanation:
     unknown_unit_types: tuple[str, ...] = ()
     invalid_units: tuple[str, ...] = ()
     problem: str | None = None
+
+    def to_text(self) -> str:
+        """The explanation for people, one line per layer."""
+        units = ", ".join(f"{_shown(uid)} ({_shown(t)})" for t, uid in self.units.items()) or "no unit"
+        lines = [f"{units}  config {self.config_version}  day {self.day}"]
+        for t, h in self.holdouts.items():
+            verdict = "held out" if h.held_out else "not held out"
+            lines.append(f"  holdout of {t}: bucket {h.bucket}, cut {h.cut}: {verdict}")
+        width = max((len(name) for name in self.layers), default=0)
+        for name, step in self.layers.items():
+            lines.append(f"  {name:<{width}}  bucket {step.bucket:>4}  {step.describe()}")
+        for t in self.unknown_unit_types:
+            lines.append(f"  unit type {_shown(t)}: no layer or holdout uses it; default experience")
+        for t in self.invalid_units:
+            lines.append(f"  unit type {_shown(t)}: the id is neither text nor an integer; default experience")
+        if self.problem:
+            lines.append(f"  note: {self.problem}")
+        return "\n".join(lines)
 
     def to_dict(self) -> dict[str, Any]:
         return {

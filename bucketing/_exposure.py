@@ -155,14 +155,16 @@ class JsonLinesSink(ExposureSink):
         old.close()
 
     def _rotate(self) -> None:
-        self._file.close()
+        """Shift path -> path.1 -> ... -> path.<backups> (the open file moves with its name), then reopen."""
         names = [self.path] + [self.path.with_name(f"{self.path.name}.{n}") for n in range(1, self.backups + 1)]
-        if self.backups == 0:
-            self.path.unlink(missing_ok=True)
-        for older, newer in reversed(list(zip(names, names[1:]))):
-            if older.exists():
-                os.replace(older, newer)
-        self._open()
+        try:
+            if self.backups == 0:
+                self.path.unlink(missing_ok=True)
+            for older, newer in reversed(list(zip(names, names[1:]))):
+                if older.exists():
+                    os.replace(older, newer)
+        finally:
+            self._reopen()  # whatever failed, write on to the file now at `path`
         self.rotated += 1
 
     def write(self, record: dict[str, Any]) -> None:
@@ -176,7 +178,11 @@ class JsonLinesSink(ExposureSink):
                     self.reopened += 1
                     logger.info("exposure file %s was moved or deleted; writing to a new file there", self.path)
             if self.max_bytes is not None and self._size and self._size + len(data) > self.max_bytes:
-                self._rotate()
+                try:
+                    self._rotate()
+                except OSError as exc:  # keep the record: write on past the limit, try again after another max_bytes
+                    self._size = 0
+                    logger.warning("exposure file %s could not be rotated; writing on: %s", self.path, exc)
             self._file.write(data)
             self._file.flush()
             self._size += len(data)

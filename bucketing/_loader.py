@@ -8,25 +8,21 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from datetime import date, datetime
 from pathlib import Path
-from typing import Any, Iterable
+from typing import IO, Any, Iterable, NamedTuple
 
-import yaml
 from pydantic import ValidationError
 
-from ._config import Config, Document, Origin, PathKey
-from ._errors import ConfigError, Problem
-from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile
+from ._config import Config, Document, Origin
+from ._errors import ConfigError, Problem, did_you_mean, shown
+from ._model import NAME_PATTERN, RANGE_PATTERN, SALT_PATTERN, ConfigFile, Holdout, Layer
 from ._rules import structural_problems
+from ._yaml import field_names, read_document, read_text, shape_of
 
-MAX_FILE_BYTES = 5 * 1024 * 1024
-MAX_NODES = 200_000
-MAX_ALIASES = 1_000
 CONFIG_SUFFIXES = (".yaml", ".yml")
 
-_PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
-_MERGE_TAG = "tag:yaml.org,2002:merge"
 _PATTERN_WORDS = {
     NAME_PATTERN: "a valid name: letters, digits, '_', '.' and '-', starting with a letter or digit "
                   "(names become parts of default salts)",
@@ -35,94 +31,14 @@ _PATTERN_WORDS = {
 }
 
 
-class _LimitedLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
-    """Safe loading only (libyaml's parser when present): no object construction.
-    Size and alias limits are enforced by `_to_plain`."""
+_FILE_SHAPE = shape_of(ConfigFile)
 
 
-def _to_plain(doc: Document, loader: _LimitedLoader, node: yaml.Node) -> Any:
-    seen: set[int] = set()
-    counts = {"nodes": 0, "aliases": 0}
-
-    def convert(node: yaml.Node, path: PathKey) -> Any:
-        counts["nodes"] += 1
-        if id(node) in seen:
-            counts["aliases"] += 1
-        seen.add(id(node))
-        if counts["nodes"] > MAX_NODES or counts["aliases"] > MAX_ALIASES:
-            raise ConfigError([doc.problem("yaml-limits", path,
-                f"document too large after expanding aliases (more than {MAX_NODES} nodes "
-                f"or {MAX_ALIASES} alias uses); write it out without anchors")])
-        doc.marks.setdefault(path, (node.start_mark.line + 1, node.start_mark.column + 1))
-        if not isinstance(node, yaml.ScalarNode) and node.tag not in _PLAIN_TAGS:
-            raise ConfigError([doc.problem("yaml-syntax", path, f"tag {node.tag!r} is not allowed; configs are plain YAML")])
-        if isinstance(node, yaml.MappingNode):
-            written = {id(k) for k, _ in node.value if k.tag != _MERGE_TAG}
-            loader.flatten_mapping(node)  # `<<` merge keys: merged pairs first, the mapping's own after
-            winners: dict[str, tuple[yaml.Node, yaml.Node]] = {}
-            for key_node, value_node in node.value:
-                key = scalar(key_node, path)
-                if not isinstance(key, (str, int, float, bool)) or key is None:
-                    raise ConfigError([doc.problem("schema", path, f"mapping key must be a plain scalar, found {key!r}")])
-                key = str(key) if not isinstance(key, str) else key
-                earlier = winners.get(key)
-                if earlier is not None and id(earlier[0]) in written and id(key_node) in written:
-                    child = path + (key,)
-                    doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
-                    raise ConfigError([doc.problem("yaml-duplicate-key", child,
-                        f"key {key!r} appears twice in the same mapping; keep one")])
-                winners[key] = (key_node, value_node)  # a key written here overrides a merged one
-            result: dict[Any, Any] = {}
-            for key, (key_node, value_node) in winners.items():
-                child = path + (key,)
-                doc.marks[child] = (key_node.start_mark.line + 1, key_node.start_mark.column + 1)
-                result[key] = convert(value_node, child)
-            return result
-        if isinstance(node, yaml.SequenceNode):
-            return [convert(item, path + (i,)) for i, item in enumerate(node.value)]
-        return scalar(node, path)
-
-    def scalar(node: yaml.Node, path: PathKey) -> Any:
-        if not isinstance(node, yaml.ScalarNode):
-            raise ConfigError([doc.problem("schema", path, "mapping keys must be plain scalars")])
-        try:
-            return loader.construct_object(node, deep=True)
-        except yaml.constructor.ConstructorError as exc:
-            raise ConfigError([doc.problem("yaml-syntax", path, str(exc.problem))]) from None
-        except ValueError as exc:
-            raise ConfigError([doc.problem("schema", path, f"{node.value!r} is not a valid {node.tag.rsplit(':', 1)[-1]}: {exc}")]) from None
-
-    return convert(node, ())
-
-
-def _read_document(path: Path, text: str | None = None) -> Document:
+def _read_document(path: Path, text: str | IO[bytes] | None = None) -> Document:
     doc = Document(file=str(path))
-    if text is None:
-        try:
-            size = path.stat().st_size
-            if size > MAX_FILE_BYTES:
-                raise ConfigError([doc.problem("yaml-limits", (), f"file is {size} bytes; the limit is {MAX_FILE_BYTES}")])
-            text = path.read_text(encoding="utf-8")
-        except UnicodeDecodeError as exc:
-            raise ConfigError([doc.problem("file-unreadable", (), f"not UTF-8 text ({exc.reason})")]) from None
-        except OSError as exc:
-            raise ConfigError([doc.problem("file-unreadable", (), exc.strerror or str(exc))]) from None
-    loader = _LimitedLoader(text)
-    try:
-        node = loader.get_single_node()
-        doc.data = None if node is None else _to_plain(doc, loader, node)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line, column = (mark.line + 1, mark.column + 1) if mark else (1, 1)
-        context = exc.context
-        if context and exc.context_mark and exc.problem_mark and exc.context_mark.line != exc.problem_mark.line:
-            context += f" (started at line {exc.context_mark.line + 1}, column {exc.context_mark.column + 1})"
-        message = " ".join(str(p) for p in (context, exc.problem) if p)
-        raise ConfigError([Problem("yaml-syntax", "error", doc.file, line, column, "", message)]) from None
-    except yaml.YAMLError as exc:
-        raise ConfigError([doc.problem("yaml-syntax", (), str(exc).splitlines()[0])]) from None
-    finally:
-        loader.dispose()
+    if not isinstance(text, str):
+        text = read_text(doc, path, text)
+    read_document(doc, text, _FILE_SHAPE)
     return doc
 
 
@@ -131,20 +47,30 @@ def _schema_problems(doc: Document, exc: ValidationError) -> list[Problem]:
     for error in exc.errors(include_url=False):
         loc = tuple(error["loc"])
         message = error["msg"]
+        found = error.get("input")
         if error["type"] == "extra_forbidden":
-            message = f"unknown key {loc[-1]!r}"
+            message = f"unknown key {shown(loc[-1])}" + did_you_mean(str(loc[-1]), field_names(_FILE_SHAPE, loc[:-1]))
         elif error["type"] == "missing":
             message = f"required key {loc[-1]!r} is missing"
         elif error["type"] == "string_pattern_mismatch":
             wanted = _PATTERN_WORDS.get(str(error.get("ctx", {}).get("pattern")), "a different form")
-            message = f"{error['input']!r} is not {wanted}"
-        elif "input" in error and not isinstance(error["input"], (dict, list)):
-            message = f"{message}; found {error['input']!r}"
+            message = f"{shown(found)} is not {wanted}"
+        elif error["type"] == "literal_error" and isinstance(found, str):
+            message = f"{message}; found {shown(found)}" + did_you_mean(found, _literal_choices(error))
+        elif error["type"] == "value_error":
+            message = message.removeprefix("Value error, ")
+        elif "input" in error and not isinstance(found, (dict, list)):
+            message = f"{message}; found {shown(found)}"
             if error["type"] in ("float_type", "int_type") and isinstance(error["input"], str):
                 percent_sign = error["input"].strip().endswith("%")
                 message += " (write the number without the % sign)" if percent_sign else " (write the number without quotes)"
         problems.append(doc.problem("schema", loc, message))
     return problems
+
+
+def _literal_choices(error: Any) -> list[str]:
+    """The allowed words of a Literal field, from pydantic's "'a', 'b' or 'c'" context text."""
+    return re.findall(r"'([^']*)'", str(error.get("ctx", {}).get("expected", "")))
 
 
 def _canonical_value(value: Any) -> Any:
@@ -182,30 +108,46 @@ def config_version(documents: Iterable[Any]) -> str:
 
 
 def config_files(path: Path) -> list[Path]:
-    """The YAML files a path names: itself, or a directory's *.yaml/*.yml in name order."""
+    """The YAML files a path names: itself, or a directory's *.yaml/*.yml in name order.
+
+    Entries of a directory that are not regular files (a FIFO named x.yaml)
+    are listed too, so that reading them reports them rather than skipping them.
+    """
     if path.is_dir():
-        return sorted(p for p in path.rglob("*") if p.is_file() and p.suffix in CONFIG_SUFFIXES)
+        return sorted(p for p in path.rglob("*") if p.suffix in CONFIG_SUFFIXES and not p.is_dir())
     return [path]
 
 
-def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None = None) -> tuple[Config | None, list[Problem]]:
+def parse_config(source: str | Path | Iterable[str | Path], *,
+                 text: str | IO[bytes] | None = None) -> tuple[Config | None, list[Problem]]:
     """Read and merge config files without raising: (config or None, problems).
 
-    Problems include schema errors and, once the files parse, every rule of
-    `_rules.structural_problems` (errors and warnings alike).
+    With `text` (a string, or a binary stream such as stdin, read up to the
+    same size cap as files), the YAML comes from there and `source` only
+    names it. Problems include schema errors and every rule of
+    `_rules.structural_problems` (errors and warnings alike). One file's
+    error hides nothing else: the other files are still read, and the rules
+    run over those that parsed; the config is None when any file failed.
     """
     sources = [source] if isinstance(source, (str, Path)) else list(source)
+    if text is not None and not isinstance(text, str):
+        try:
+            text = read_text(Document(file=str(sources[0]) if sources else "<stdin>"), Path("-"), text)
+        except ConfigError as exc:
+            return None, exc.problems
     paths: list[Path] = []
+    problems: list[Problem] = []
     for s in sources:
         p = Path(s)
         if text is None and not p.exists():
-            return None, [Problem("file-unreadable", "error", str(p), 1, 1, "", "no such file or directory")]
+            problems.append(Problem("file-unreadable", "error", str(p), 1, 1, "", "no such file or directory"))
+            continue
         paths.extend(config_files(p) if text is None else [p])
-    if not paths:
-        return None, [Problem("file-unreadable", "error", str(sources[0]), 1, 1, "", "no .yaml or .yml files found")]
+    if not paths and not problems:
+        return None, [Problem("file-unreadable", "error", str(sources[0]) if sources else "<config>", 1, 1, "",
+                              "no .yaml or .yml files found")]
 
-    problems: list[Problem] = []
-    documents: list[tuple[Document, ConfigFile]] = []
+    documents: list[tuple[Document, _Parsed]] = []
     for p in paths:
         try:
             doc = _read_document(p, text)
@@ -216,20 +158,54 @@ def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None 
             problems.append(doc.problem("schema", (), "a config file is a mapping with `format: 1` and `layers`"))
             continue
         try:
-            documents.append((doc, ConfigFile.model_validate(doc.data)))
+            parsed = ConfigFile.model_validate(doc.data)
+            documents.append((doc, _Parsed(list(enumerate(parsed.layers)), list(enumerate(parsed.holdout)),
+                                           parsed.weekly_units)))
         except ValidationError as exc:
             problems.extend(_schema_problems(doc, exc))
-    if problems:
-        return None, problems
+            documents.append((doc, _valid_parts(doc.data)))
+    failed = bool(problems)
+    config = _merge(documents, [str(p) for p in paths], problems)
+    problems.extend(structural_problems(config))
+    return (None if failed else config), problems
 
+
+class _Parsed(NamedTuple):
+    """What of one file validated: layers and holdouts with their index in the file, weekly_units."""
+
+    layers: list[tuple[int, Layer]]
+    holdouts: list[tuple[int, Holdout]]
+    weekly_units: dict[str, int]
+
+
+def _valid_parts(data: dict[str, Any]) -> _Parsed:
+    """The layers and holdouts of a file that failed validation which are valid on their own.
+
+    The cross-field rules still run over them, so that one layer's typo does
+    not hide another layer's overlap.
+    """
+    def valid(model: type[Layer] | type[Holdout], items: Any) -> list:
+        kept = []
+        for i, item in enumerate(items if isinstance(items, list) else []):
+            try:
+                kept.append((i, model.model_validate(item)))
+            except ValidationError:
+                pass  # reported already, by the validation of the whole file
+        return kept
+
+    return _Parsed(valid(Layer, data.get("layers")), valid(Holdout, data.get("holdout")), {})
+
+
+def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems: list[Problem]) -> Config:
+    """One Config from the parsed files, with where each layer and holdout came from."""
     layers, layer_origins, holdouts, holdout_origins = [], [], [], []
     weekly: dict[str, int] = {}
     weekly_origins: dict[str, Origin] = {}
     for doc, parsed in documents:
-        for i, layer in enumerate(parsed.layers):
+        for i, layer in parsed.layers:
             layers.append(layer)
             layer_origins.append(Origin(doc, ("layers", i)))
-        for i, holdout in enumerate(parsed.holdout):
+        for i, holdout in parsed.holdouts:
             holdouts.append(holdout)
             holdout_origins.append(Origin(doc, ("holdout", i)))
         for unit_type, count in parsed.weekly_units.items():
@@ -238,26 +214,25 @@ def parse_config(source: str | Path | Iterable[str | Path], *, text: str | None 
                     f"weekly_units for {unit_type!r} is also given in {weekly_origins[unit_type].document.file}; keep one"))
             weekly[unit_type] = count
             weekly_origins[unit_type] = Origin(doc, ("weekly_units", unit_type))
-    config = Config(
+    return Config(
         layers=tuple(layers),
         holdouts=tuple(holdouts),
         weekly_units=weekly,
         version=config_version(doc.data for doc, _ in documents),
-        files=tuple(str(p) for p in paths),
+        files=tuple(files),
         _layer_origins=tuple(layer_origins),
         _holdout_origins=tuple(holdout_origins),
         _weekly_origins=weekly_origins,
     )
-    problems.extend(structural_problems(config))
-    return config, problems
 
 
-def load_config(source: str | Path | Iterable[str | Path], *, text: str | None = None) -> Config:
+def load_config(source: str | Path | Iterable[str | Path], *, text: str | IO[bytes] | None = None) -> Config:
     """Load, validate and merge a config file, a directory, or several of them.
 
     Raises ConfigError (every error located by file, line and column) when
     the config cannot be used; warnings do not stop loading. With `text`,
-    the YAML is taken from that string and `source` only names it.
+    the YAML is taken from that string or binary stream and `source` only
+    names it.
     """
     config, problems = parse_config(source, text=text)
     errors = [p for p in problems if p.severity == "error"]

@@ -15,15 +15,23 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]*$"
 SALT_PATTERN = r"^[A-Za-z0-9_.-]+$"
-RANGE_PATTERN = r"^\s*\d+\s*(-\s*\d+\s*)?$"
+RANGE_PATTERN = r"^ *[0-9]{1,5} *(- *[0-9]{1,5} *)?$"  # ASCII digits only; 5 digits reach past bucket 9999
 CONDITION_PATTERN = re.compile(r"^\s*(>=|<=|==|!=|>|<)\s*(\S+)\s*$")
 
 STATUSES = ("draft", "running", "paused", "done")
 
 
+def _exactly_int(value: Any) -> Any:
+    if type(value) is not int:  # Literal[1] alone would take true and 1.0
+        raise ValueError(f"expected the integer 1, found {value!r}")
+    return value
+
+
 def _iso_date(value: Any) -> Any:
     if isinstance(value, str):
         try:
+            if not re.fullmatch(r"[0-9]{4}-[0-9]{2}-[0-9]{2}", value):
+                raise ValueError  # Python 3.11 would also take 20261103 and 2026-W45-2; 3.10 and the spec do not
             return date.fromisoformat(value)
         except ValueError:
             raise ValueError(f"expected an ISO date such as 2026-11-03, found {value!r}") from None
@@ -51,7 +59,7 @@ class Waiver(_Strict):
 
 class Arm(_Strict):
     name: Name
-    weight: Number
+    weight: Annotated[Number, Field(ge=0, le=100)]
     params: dict[str, Any] = Field(default_factory=dict)
 
     @property
@@ -77,6 +85,11 @@ class Experiment(_Strict):
         default=None,
         description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
     )
+    rollout: Name | None = Field(
+        default=None,
+        description="A staged rollout: the name of the arm released to a growing share of units. A change that "
+                    "moves units only into this arm needs no approval; one that moves units out of it does.",
+    )
 
     @property
     def ranges(self) -> tuple[tuple[int, int], ...]:
@@ -98,7 +111,7 @@ class Layer(_Strict):
 class Holdout(_Strict):
     unit: Name
     salt: Salt
-    percent: Annotated[Number, Field(gt=0, lt=100)]
+    percent: Annotated[Number, Field(ge=0.01, lt=100, description="Share of units held out, in percent; at least 0.01 (one bucket).")]
 
     @property
     def width(self) -> int:
@@ -109,7 +122,7 @@ class Holdout(_Strict):
 class ConfigFile(_Strict):
     """One YAML file of the config format (`format: 1`)."""
 
-    format: Literal[1]
+    format: Annotated[Literal[1], BeforeValidator(_exactly_int)]
     holdout: list[Holdout] = Field(default_factory=list)
     layers: list[Layer] = Field(default_factory=list)
     weekly_units: dict[str, Annotated[int, Field(ge=0)]] = Field(
@@ -156,9 +169,18 @@ def hundredths(value: float) -> int | None:
     return scaled if abs(value * 100 - scaled) < 1e-6 else None
 
 
+MAX_VERSION_PART_DIGITS = 18
+MAX_VERSION_PARTS = 16
+
+
 def parse_version(text: str) -> tuple[int, ...] | None:
-    """'7.2.1' -> (7, 2, 1); None when the text is not a dotted version of integers."""
+    """'7.2.1' -> (7, 2, 1), from the characters as written; None when the text is not a dotted version.
+
+    Parts are ASCII digits, at most 18 of them (a build number of a date and
+    time fits), at most 16 parts: anything longer is not a version.
+    """
     parts = text.strip().lstrip("vV").split(".")
-    if not parts or not all(p.isdigit() for p in parts):
+    if len(parts) > MAX_VERSION_PARTS or not all(
+            0 < len(p) <= MAX_VERSION_PART_DIGITS and p.isascii() and p.isdigit() for p in parts):
         return None
     return tuple(int(p) for p in parts)

@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections import defaultdict
 from typing import Iterator
 
-from ._errors import Problem
+from ._errors import Problem, did_you_mean, shown
 from ._hashing import BUCKETS
 from ._config import Config
 from ._model import CONDITION_PATTERN, experiment_salt, hundredths, parse_version
@@ -22,6 +22,7 @@ RULES = {
     "yaml-syntax": "a config file is not valid YAML",
     "yaml-limits": "a config file is too large or expands too many aliases",
     "yaml-duplicate-key": "a key appears twice in one mapping",
+    "yaml-ambiguous": "a plain value that YAML 1.1 reads differently from YAML 1.2 (yes, 062, 1_000, 12:30): quote or respell it",
     "schema": "a field has the wrong type, an unknown key, or a required key is missing",
     "name-duplicate": "two layers, experiments of a layer, or arms of an experiment share a name",
     "range-bounds": "a bucket range is reversed or outside 0-9999",
@@ -34,6 +35,7 @@ RULES = {
     "unit-mismatch": "an experiment's unit type differs from its layer's",
     "holdout-duplicate": "two holdouts for one unit type",
     "override-unknown-arm": "an override names an arm the experiment does not have",
+    "rollout-unknown-arm": "`rollout` names an arm the experiment does not have",
     "override-conflict": "a unit is forced into two running experiments of one layer",
     "condition-syntax": "an eligibility condition is neither a list of values nor a version comparison",
     "window-reversed": "an experiment ends before it starts",
@@ -61,16 +63,21 @@ def _findings(config: Config) -> Iterator[tuple[str, tuple, str]]:
                 yield ("unit-mismatch", at + ("unit",),
                        f"experiment unit {exp.unit!r} differs from layer {layer.name!r} unit {layer.unit!r}; "
                        "move the experiment to a layer of that unit type")
-            arm_names = {arm.name for arm in exp.arms}
+            arm_names = [arm.name for arm in exp.arms]
             for unit, forced_arm in exp.overrides.items():
                 if forced_arm not in arm_names:
                     yield ("override-unknown-arm", at + ("overrides", unit),
-                           f"override for {unit!r} names arm {forced_arm!r}; the arms are {sorted(arm_names)}")
+                           f"override for {shown(unit)} names arm {shown(forced_arm)}"
+                           f"{did_you_mean(forced_arm, arm_names)}; the arms are {arm_names}")
                 elif exp.status == "running":
                     other = forced_in.setdefault(unit, exp.name)
                     if other != exp.name:
                         yield ("override-conflict", at + ("overrides", unit),
                                f"unit {unit!r} is also forced into {other!r} of this layer; keep one override")
+            if exp.rollout is not None and exp.rollout not in arm_names:
+                yield ("rollout-unknown-arm", at + ("rollout",),
+                       f"rollout names arm {shown(exp.rollout)}{did_you_mean(exp.rollout, arm_names)}; "
+                       f"the arms are {arm_names}")
             if exp.start and exp.end and exp.end < exp.start:
                 yield ("window-reversed", at + ("end",),
                        f"end {exp.end.isoformat()} is before start {exp.start.isoformat()}")
@@ -198,9 +205,6 @@ def _weights(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
             yield ("weight-precision", at + ("arms", ai, "weight"),
                    f"weight {arm.weight} of arm {arm.name!r} has more than two decimals (buckets are 0.01 % wide)")
             return
-        if h < 0:
-            yield ("weights-total", at + ("arms", ai, "weight"), f"weight {arm.weight} of arm {arm.name!r} is negative")
-            return
         total += h
     if total != 10_000:
         yield ("weights-total", at + ("arms",),
@@ -214,5 +218,5 @@ def _conditions(exp, at: tuple) -> Iterator[tuple[str, tuple, str]]:
         match = CONDITION_PATTERN.match(condition)
         if match is None or parse_version(match.group(2)) is None:
             yield ("condition-syntax", at + ("eligible", attr),
-                   f"condition {condition!r} on {attr!r} is not a version comparison such as '>=7.2'; "
+                   f"condition {shown(condition)} on {shown(attr)} is not a version comparison such as '>=7.2'; "
                    "to match values, write a list such as [ios, android]")

@@ -19,6 +19,7 @@ from __future__ import annotations
 import hashlib
 import logging
 import os
+import stat
 import threading
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -26,7 +27,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from ._errors import ConfigError
-from ._loader import MAX_FILE_BYTES, config_files, load_config
+from ._loader import config_files, load_config
+from ._yaml import MAX_FILE_BYTES
 
 if TYPE_CHECKING:
     from ._assigner import Assigner
@@ -55,7 +57,9 @@ def _file_state(path: Path) -> FileState:
     """What identifies one file's content and write history, without trusting timestamps alone."""
     try:
         status = path.stat()
-        if status.st_size > MAX_FILE_BYTES:
+        if not stat.S_ISREG(status.st_mode):
+            digest = "not a regular file"  # the loader refuses it; opening a FIFO here would block
+        elif status.st_size > MAX_FILE_BYTES:
             digest = "too large to hash"  # the loader refuses it; its stat still tells a change
         else:
             with open(path, "rb") as file:

@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from ._assigner import Assigner
+from ._errors import did_you_mean
 from ._exposure import ExposureSink, MemorySink
 from ._loader import load_config
 from ._plan import Plan
@@ -32,7 +33,7 @@ def pinned(assigner: Assigner, units: Mapping[str, str], *, layer: str, experime
     original = assigner._plan
     target = original.config.layer(layer)
     if target is None:
-        raise KeyError(f"config has no layer {layer!r}")
+        raise KeyError(f"config has no layer {layer!r}{did_you_mean(layer, [x.name for x in original.config.layers])}")
     exp = next((e for e in target.experiments if e.name == experiment), None)
     if exp is None:
         raise KeyError(f"layer {layer!r} has no experiment {experiment!r}")

@@ -4,8 +4,10 @@ import json
 import subprocess
 import sys
 from pathlib import Path
+
 import pytest
-from tests.conftest import CHECK_FIXTURES, EXAMPLE
+
+from tests.conftest import CHECK_FIXTURES, EXAMPLE, ROOT
 
 
 SORTITION = Path(sys.executable).parent / "sortition"
@@ -124,7 +126,7 @@ def test_installed_command_runs_as_ci_would(tmp_path):
 def test_pre_commit_hooks_file_names_the_check_command():
     import yaml
 
-    hooks = yaml.safe_load((Path(__file__).parent.parent / ".pre-commit-hooks.yaml").read_text())
+    hooks = yaml.safe_load((ROOT / ".pre-commit-hooks.yaml").read_text())
     by_id = {hook["id"]: hook for hook in hooks}
     # pre-commit's manifest format (pre-commit.com, "Creating new hooks"): id, name, entry, language required.
     for hook in hooks:

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from audit.checks import meanings
-from tests.conftest import CHECK_FIXTURES
+from tests.conftest import CHECK_FIXTURES, EXAMPLE
 
 MARKER = re.compile(r"#\s*<-\s*([a-z0-9-]+(?:\s*,\s*[a-z0-9-]+)*)\s*$")
 UNREADABLE = {"file-unreadable", "yaml-syntax", "yaml-limits"}
@@ -69,18 +69,18 @@ def test_clean_fixture_has_no_findings_at_all(sortition):
 
 
 def test_example_configs_have_no_errors(sortition):
-    got = _run(sortition, str(Path(__file__).parent.parent / "configs_example"), "--today", "2026-11-15")
+    got = _run(sortition, str(EXAMPLE), "--today", "2026-11-15")
     assert got.exit_code == 0
     assert [f for f in json.loads(got.stdout)["findings"] if f["severity"] == "error"] == []
 
 
-def test_bytes_that_are_not_utf8_are_unreadable_at_line_1(sortition, tmp_path):
+def test_bytes_that_are_not_utf8_are_unreadable_at_their_line(sortition, tmp_path):
     bad = tmp_path / "latin1.yaml"
     bad.write_bytes("format: 1\n# caf\xe9\n".encode("latin-1"))
     got = _run(sortition, str(bad))
     assert got.exit_code == 2
     (finding,) = json.loads(got.stdout)["findings"]
-    assert (finding["rule"], finding["line"]) == ("file-unreadable", 1)
+    assert (finding["rule"], finding["line"], finding["column"]) == ("file-unreadable", 2, 6)
     assert "UTF-8" in finding["message"]
 
 

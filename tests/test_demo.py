@@ -2,9 +2,9 @@
 
 import subprocess
 import sys
-from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
+from tests.conftest import ROOT
+
 
 
 def test_demo_runs_every_step_and_finds_the_planted_fault(tmp_path):

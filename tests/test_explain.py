@@ -244,3 +244,22 @@ def test_explanations_agree_with_assign_on_random_units(unit, attrs, day, unit_t
 @lru_cache(maxsize=1)
 def _example() -> tuple[Assigner, dict]:
     return Assigner(EXAMPLE), _raw_example(EXAMPLE)
+
+
+def test_text_names_the_deciding_numbers_and_escapes_control_characters(assigner):
+    held = unit_where(lambda u: bucket_of("small-holdout", u) < 1000)
+    text = assigner.explain({"learner": held}, OK, day=DAY).to_text()
+    assert f"holdout bucket {bucket_of('small-holdout', held)} < cut 1000" in text
+    assert text.splitlines()[0] == f"{held} (learner)  config {assigner.version}  day 2026-11-15"
+    unit = unit_where(lambda u: not_held(u) and bucket_of("flow", u) < 2000)
+    text = assigner.explain({"learner": unit}, {"country": "\x1b[2JUS"}, day=DAY).to_text()
+    assert "not eligible for alpha: country is '\\x1b[2JUS', rule in [NL, BE]" in text and "\x1b" not in text
+    lines = {type(step).__name__: step.describe() for step in [
+        explain_flow(assigner, unit_where(lambda u: not_held(u) and 2000 <= bucket_of("flow", u) < 4000)),
+        explain_flow(assigner, unit_where(lambda u: not_held(u) and bucket_of("flow", u) >= 6000)),
+        explain_flow(assigner, unit_where(lambda u: not_held(u) and 4000 <= bucket_of("flow", u) < 6000),
+                     day=date(2026, 11, 9)),
+    ]}
+    assert lines == {"NotRunning": "not running: beta owns this bucket but is paused",
+                     "NoExperiment": "no experiment: this bucket is in no experiment's ranges",
+                     "BeforeStart": "before start: gamma starts 2026-11-10 (day 2026-11-09)"}

@@ -142,6 +142,19 @@ def test_size_rotation_keeps_the_newest_records_in_bounded_files(tmp_path):
     assert kept == list(range(100 - len(kept), 100)) and sink.rotated >= 2
 
 
+def test_a_rotation_that_fails_loses_no_record(tmp_path, caplog):
+    path = tmp_path / "exposures.jsonl"
+    (tmp_path / "exposures.jsonl.1").mkdir()
+    (tmp_path / "exposures.jsonl.1" / "in-the-way").write_text("")
+    sink = JsonLinesSink(path, max_bytes=50, backups=1)
+    with caplog.at_level(logging.WARNING, logger="bucketing.sinks"):
+        for n in range(10):
+            sink.write({"n": n, "pad": "x" * 20})
+    sink.close()
+    assert [strict_json(x)["n"] for x in path.read_text().splitlines()] == list(range(10))
+    assert caplog.records and "could not be rotated" in caplog.records[0].getMessage()
+
+
 def test_sink_failures_are_counted_and_logged_at_most_once_a_minute(example_dir, caplog, monkeypatch):
     clock = [5000.0]
     monkeypatch.setattr("bucketing._exposure.monotonic", lambda: clock[0])
@@ -192,6 +205,8 @@ def test_assign_many_with_fewer_attributes_than_ids_never_raises():
     assert [g.units["learner"] for g in got] == ["a", "b", "qa-1", "c"]
     assert got[2].arm("flow") == "big" and got[3].arm("flow") is None
     assert assigner.errors["attributes_ran_out"] == 2
+    assert [g.arm("flow") for g in assigner.assign_many("learner", ["qa-1"], 7)] == ["big"]  # type: ignore[arg-type]
+    assert assigner.errors["attributes"] == 1
 
 
 def test_dedupe_forgets_the_least_recently_seen_unit_first():
@@ -213,6 +228,9 @@ def test_records_carry_only_targeted_and_named_attributes():
         {"learner": "qa-1"}, attrs).expose()
     assert set(plain.records[0]) == set(RECORD_FIELDS) | {"country"}
     assert set(named.records[0]) == set(RECORD_FIELDS) | {"country", "platform"}
+    one = MemorySink()
+    assigner_from_yaml(TARGETS_COUNTRY, sink=one, record_attributes="platform").assign({"learner": "qa-1"}, attrs).expose()
+    assert set(one.records[0]) == set(named.records[0]), "one name given as text is that name, not its letters"
 
 
 def test_an_attribute_cannot_overwrite_a_record_field():

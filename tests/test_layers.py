@@ -17,12 +17,14 @@ MAY_IMPORT = {
     "srm": set(),
 }
 COMPUTE = ("checks", "srm")
+DUCKDB_ENGINE = {"_sql", "_scan", "_malformed", "_duckdb"}  # audit/srm modules of the DuckDB counting engine
 CLI_LIBRARIES = ("typer", "click")
 # Tests of the SDK's internals that may import its private modules (each names what it takes and why there).
 SDK_INTERNAL_TESTS = {
     ROOT / "tests" / "vectors" / "make_vectors.py",  # salt_uses: the generator lists every salt the rules see
     ROOT / "tests" / "test_explain.py",  # REASONS: every reason code of explain is covered
     ROOT / "tests" / "test_exposure_sinks.py",  # pseudonym: the HMAC written in place of unit ids
+    ROOT / "tests" / "test_batch.py",  # _executor_assigner: a Spark worker builds the Assigner of a version once
 }
 
 
@@ -71,6 +73,15 @@ def test_imports_inside_audit_point_one_way():
                 if layer in COMPUTE and parts[0] in CLI_LIBRARIES:
                     wrong.append((str(path.relative_to(ROOT)), name))
     assert wrong == []
+
+
+def test_only_the_duckdb_engine_touches_duckdb():
+    # Results, statistics, diagnosis and renderers see small tables: they load without any counting engine.
+    outside = [(str(path.relative_to(ROOT)), name) for path in (ROOT / "audit").rglob("*.py")
+               if not (path.parent.name == "srm" and path.stem in DUCKDB_ENGINE)
+               for name in _imports(path)
+               if name.split(".")[0] == "duckdb" or name.split(".")[:3] in [["audit", "srm", m] for m in DUCKDB_ENGINE]]
+    assert outside == []
 
 
 def test_the_checker_sees_a_wrong_import(tmp_path):

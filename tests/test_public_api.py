@@ -2,9 +2,8 @@
 
 import dataclasses
 import json
-import subprocess
-import sys
 from datetime import date
+from importlib import metadata
 
 import duckdb
 import pandas as pd
@@ -12,8 +11,10 @@ import pyarrow as pa
 import pytest
 
 import audit
+import bucketing
 from audit import AuditError, SortitionError, audit_logs, check_config, diff_configs, layout_of
-from tests.conftest import CHECK_FIXTURES, EXAMPLE
+from bucketing import Assigner, MemorySink
+from tests.conftest import CHECK_FIXTURES, EXAMPLE, ROOT
 from tests.invented_logs import invented_records
 
 SPLIT = {"left": 50, "right": 50}
@@ -24,11 +25,16 @@ def records():
     return pd.DataFrame(invented_records(seed=21, units=600))
 
 
-def _cli_json(*args) -> dict:
-    done = subprocess.run([sys.executable, "-m", "audit", *map(str, args), "--format", "json"],
-                          capture_output=True, text=True)
-    assert done.returncode in (0, 1), done.stderr
-    return json.loads(done.stdout)
+@pytest.fixture
+def cli_json(sortition):
+    """What `sortition ARGS... --format json` prints, parsed."""
+
+    def run(*args) -> dict:
+        done = sortition(*args, "--format", "json")
+        assert done.exit_code in (0, 1), done.stderr
+        return json.loads(done.stdout)
+
+    return run
 
 
 def _without_sources(report: dict) -> dict:
@@ -36,10 +42,10 @@ def _without_sources(report: dict) -> dict:
     return {k: v for k, v in report.items() if k != "files"}
 
 
-def test_a_dataframe_audits_as_the_same_records_in_parquet_on_the_command_line(records, tmp_path):
+def test_a_dataframe_audits_as_the_same_records_in_parquet_on_the_command_line(cli_json, records, tmp_path):
     path = tmp_path / "records.parquet"
     records.to_parquet(path)
-    from_cli = _cli_json("srm", path, "--expect", "left=50,right=50", "--by", "country", "--quiet")
+    from_cli = cli_json("srm", path, "--expect", "left=50,right=50", "--by", "country", "--quiet")
     from_frame = audit_logs(records, expect=SPLIT, segments=["country"])
     assert from_cli["results"] and from_cli["results"][0]["segments"]
     assert _without_sources(from_frame.to_dict()) == _without_sources(from_cli)
@@ -81,23 +87,38 @@ def test_library_errors_share_one_base_and_name_no_option(records):
     assert "no column 'unit'" in str(raised.value) and "--" not in str(raised.value)
 
 
-def test_check_diff_and_layout_give_what_the_command_line_prints(tmp_path):
+def test_check_diff_and_layout_give_what_the_command_line_prints(cli_json):
     fixture = CHECK_FIXTURES / "arm-zero-weight.yaml"
-    assert check_config(fixture, day=date(2026, 11, 15)).to_dict() == _cli_json("check", fixture, "--day", "2026-11-15")
-    assert diff_configs(EXAMPLE, EXAMPLE).to_dict() == _cli_json("diff", EXAMPLE, EXAMPLE)
-    assert layout_of(EXAMPLE, want=10).to_dict() == _cli_json("layout", EXAMPLE, "--want", "10")
+    assert check_config(fixture, day=date(2026, 11, 15)).to_dict() == cli_json("check", fixture, "--day", "2026-11-15")
+    assert diff_configs(EXAMPLE, EXAMPLE).to_dict() == cli_json("diff", EXAMPLE, EXAMPLE)
+    assert layout_of(EXAMPLE, want=10).to_dict() == cli_json("layout", EXAMPLE, "--want", "10")
     assert check_config(fixture).findings[0].rule == "arm-zero-weight"
 
 
-def test_the_version_is_the_installed_one():
-    from importlib import metadata
-    done = subprocess.run([sys.executable, "-m", "audit", "--version"], capture_output=True, text=True)
-    assert audit.__version__ == metadata.version("sortition")
-    assert done.returncode == 0 and done.stdout.strip() == f"sortition {audit.__version__}"
+def test_the_version_is_the_installed_one(sortition):
+    assert audit.__version__ == bucketing.__version__ == metadata.version("sortition")
+    done = sortition("--version")
+    assert done.exit_code == 0 and done.stdout.strip() == f"sortition {audit.__version__}"
 
 
-def test_results_and_renderers_load_without_the_counting_engine():
-    code = ("import sys; from audit.srm import AuditResult, ExperimentResult; import audit.render; "
-            "print(sorted(m for m in ('duckdb', 'pandas', 'typer') if m in sys.modules))")
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
-    assert done.returncode == 0 and done.stdout.strip() == "[]", done.stdout + done.stderr
+def test_the_command_line_names_an_unknown_engine(sortition, tmp_path):
+    log = tmp_path / "log.jsonl"
+    log.write_text('{"ts": "2026-11-04T09:00:00Z", "unit": "L-1", "experiment": "e", "arm": "a"}\n')
+    got = sortition("srm", log, "--expect", "100", "--engine", "abacus", "--quiet")
+    assert got.exit_code == 2 and "unknown counting engine 'abacus'; the engines are duckdb" in got.stderr
+
+
+def test_the_readme_notebook_snippet_runs(tmp_path, capsys):
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## In a notebook"):]
+    snippet = section[section.index("```python") + len("```python"):section.index("```", section.index("```python") + 3)]
+    sink = MemorySink()
+    assigner = Assigner(EXAMPLE, sink=sink)
+    for i in range(3000):  # invented learners, exposed through the SDK
+        attrs = {"country": ("NL", "DE", "BR")[i % 3], "platform": ("ios", "web")[i % 2], "app_version": "7.4.0"}
+        assigner.assign({"learner": f"n-{i}"}, attrs, day=date(2026, 11, 20)).param("lesson_minutes")
+    pd.DataFrame(sink.records).to_parquet(tmp_path / "exposures.parquet")
+    namespace: dict = {}
+    exec(compile(snippet.replace('"exposures.parquet"', repr(str(tmp_path / "exposures.parquet")))
+                 .replace('"configs/"', repr(str(EXAMPLE))), "README.md", "exec"), namespace)
+    assert namespace["result"].results and "shorter-lessons" in capsys.readouterr().out

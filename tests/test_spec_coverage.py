@@ -6,7 +6,8 @@ and on a small exposure log written by the SDK with planted faults (so
 that every part of the SRM report is filled in). Then:
 
 - every top-level field of a command's JSON has a row of its own in that
-  command's section of the specification (`| `field` | ...`);
+  command's section of the specification (`| `field` | ...`), and every
+  top-level row of the section's first table is a field the command prints;
 - every nested field name appears, in backticks, somewhere in that section.
 
 A command that gains a field fails this test until the specification says
@@ -76,7 +77,8 @@ def command_section(command: str) -> str:
 
 
 def assert_described(command: str, outputs: list) -> None:
-    text = command_section(command)
+    # Code fences out first: their backticks would pair up every later `name` wrongly.
+    text = re.sub(r"^```.*?^```", "", command_section(command), flags=re.MULTILINE | re.DOTALL)
     rows = set(re.findall(r"^\| `([^`]+)`", text, re.MULTILINE))
     words = {word for quoted in re.findall(r"`([^`]+)`", text) for word in re.findall(r"[\w$]+", quoted)}
     words |= {word for braced in re.findall(r"\{([\w, ]+)\}", text) for word in re.findall(r"\w+", braced)}
@@ -89,6 +91,11 @@ def assert_described(command: str, outputs: list) -> None:
     assert not missing_rows, (f"`sortition {command} --format json` prints top-level field(s) {missing_rows} that "
                               f"docs/SPEC.md does not describe: add a table row for each in its `sortition {command}` "
                               "section")
+    first_table = re.search(r"^\|.*?(?=^[^|]|\Z)", text, re.MULTILINE | re.DOTALL).group(0)
+    promised = {row for row in re.findall(r"^\| `([^`]+)`", first_table, re.MULTILINE) if re.fullmatch(r"[\w$]+", row)}
+    gone = sorted(promised - top)
+    assert not gone, (f"docs/SPEC.md describes top-level field(s) {gone} of `sortition {command}` that the command "
+                      "no longer prints: update its section")
     nested = {re.split(r"[.\[\]]+", p.rstrip("]"))[-1] for p in paths - top} - {"*", ""}
     missing = sorted(nested - words)
     assert not missing, (f"`sortition {command} --format json` prints field(s) {missing} that the `sortition "

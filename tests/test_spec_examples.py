@@ -24,7 +24,7 @@ from pathlib import Path
 import mmh3
 import pytest
 
-from bucketing import Assigner, MemorySink, bucket_of, load_config
+from bucketing import Assigner, ConfigError, MemorySink, bucket_of, load_config
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC = (ROOT / "docs" / "SPEC.md").read_text(encoding="utf-8")
@@ -215,6 +215,24 @@ def test_eligibility_examples(entry, value, holds):
     attrs = {} if value == "absent" else {attribute: json.loads(value.strip("`"))}
     got = Assigner(config).assign({"learner": "L-1"}, attrs, day=date(2026, 11, 20))
     assert (got.layers["gate"].experiment == "gated") is (holds == "yes")
+
+
+# -- dates -----------------------------------------------------------------------------------------
+
+def test_dates_are_written_year_month_day():
+    """§2.8: only YYYY-MM-DD, on every Python (3.11's fromisoformat alone would take the other forms)."""
+    refused = re.search(r"other\s+ISO forms \((.*?)\) are refused", section(r"2\.8 "), re.DOTALL).group(1)
+    written = re.findall(r"`([^`]+)`", refused)
+    assert len(written) == 3
+    for text in written:
+        with pytest.raises(ConfigError, match="ISO date"):
+            load_config("dates.yaml", text=ONE_EXPERIMENT.replace("        eligible:\n          {entry}\n",
+                                                                  f"        start: {text}\n"))
+    plain, quoted = (load_config("dates.yaml", text=ONE_EXPERIMENT.replace("        eligible:\n          {entry}\n",
+                                                                           f"        start: {day}\n"))
+                     for day in ("2026-11-03", '"2026-11-03"'))
+    assert plain.version == quoted.version
+    assert plain.layers[0].experiments[0].start == date(2026, 11, 3)
 
 
 # -- config version id -----------------------------------------------------------------------------

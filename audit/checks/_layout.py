@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
-from bucketing import BUCKETS, Config, Layer, hundredths, load_config
+from bucketing import BUCKETS, Config, Layer, did_you_mean, hundredths, load_config
 
 from .._errors import AuditError
 
@@ -135,7 +135,8 @@ def layout_of(config: Config | str | Path, layer: str | None = None, want: float
     loaded = config if isinstance(config, Config) else load_config(config)
     chosen = [item for item in loaded.layers if layer is None or item.name == layer]
     if layer is not None and not chosen:
-        raise AuditError(f"no layer named {layer!r}; the layers are {[item.name for item in loaded.layers]}")
+        names = [item.name for item in loaded.layers]
+        raise AuditError(f"no layer named {layer!r}{did_you_mean(layer, names)}; the layers are {names}")
     wanted = None
     if want is not None:
         wanted = hundredths(want)

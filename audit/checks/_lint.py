@@ -14,7 +14,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
-from typing import Any, Iterable, Iterator, Mapping, Union
+from typing import IO, Any, Iterable, Iterator, Mapping, Union
 
 from bucketing import BUCKETS, Config, Experiment, Problem, parse_config
 
@@ -79,7 +79,7 @@ class CheckResult:
 
 def check_config(sources: Sources, *, day: date | None = None, weekly_units: Mapping[str, int] | None = None,
                  min_arm_units: int = DEFAULT_MIN_ARM_UNITS, ignore: Iterable[str] = (),
-                 text: str | None = None) -> CheckResult:
+                 text: str | IO[bytes] | None = None) -> CheckResult:
     """Lint one config (files and directories merged): its findings, waivers applied.
 
     `day` judges dates (default: today); `weekly_units` (unit type -> units a

@@ -48,9 +48,17 @@ def _read_units(source: str) -> Iterator[tuple[str, dict[str, str]]]:
                     yield unit, {}
 
 
+def _given_units(unit: str | None, units: str | None) -> Iterator[tuple[str, dict[str, str]]]:
+    """The unit of --unit, or the units of the --units file, with their attributes."""
+    if unit is not None:
+        yield unit, {}
+    elif units is not None:
+        yield from _read_units(units)
+
+
 def _text(got: Assignment, unit_type: str) -> str:
     unit = got.units.get(unit_type, "?")
-    lines = [f"{unit} ({unit_type})  config {got.config}  holdout: {'yes' if got.holdout else 'no'}"]
+    lines = [f"{unit} ({unit_type})  config {got.config_version}  holdout: {'yes' if got.holdout else 'no'}"]
     width = max((len(name) for name in got.layers), default=0)
     for name, la in got.layers.items():
         what = f"{la.experiment} / {la.arm}" + ("  (forced)" if la.forced else "") if la.experiment else "-"
@@ -74,7 +82,8 @@ def register(app: typer.Typer) -> None:
     @app.command(
         "assign",
         epilog="Example: sortition assign configs_example --unit L-1042 --unit-type learner "
-        "--attr country=NL --attr app_version=7.4 --format json",
+        "--attr country=NL --attr app_version=7.4 --format json. "
+        "Why a layer gave what it gave: sortition assign configs_example --unit L-1042 --attr country=US --explain",
     )
     def assign(
         config: Path = typer.Argument(..., help="Config file or directory."),
@@ -86,6 +95,9 @@ def register(app: typer.Typer) -> None:
         day: Optional[str] = typer.Option(None, "--day", help="Assign as of this ISO date (default: today, UTC)."),
         today: Optional[str] = typer.Option(None, "--today", hidden=True, help="Another name of --day."),
         fmt: AssignFormat = typer.Option(AssignFormat.text, "--format", help="text, json (JSON Lines for --units) or csv."),
+        explain: bool = typer.Option(False, "--explain", help="Say for each layer which step decided: forced, held out, "
+                                     "a bucket in no experiment's range, not running, before start or after end, a failed "
+                                     "eligibility rule (attribute, value, rule), or the arm bucket and the arm. Text or json."),
     ) -> None:
         """Assign one unit, or a file of units, and print experiments, arms, buckets and parameters."""
 
@@ -104,6 +116,13 @@ def register(app: typer.Typer) -> None:
             when = iso_day(day, "--day") or iso_day(today, "--today")
             assigner = Assigner(loaded)
             extra = key_value_pairs(attr, "--attr", "KEY=VALUE such as country=NL")
+            if explain:
+                if fmt is AssignFormat.csv:
+                    fail("--explain prints text or json, not csv")
+                for uid, more in _given_units(unit, units):
+                    why = assigner.explain({chosen: uid}, {**extra, **more}, day=when)
+                    typer.echo(json.dumps(why.to_dict(), ensure_ascii=False) if fmt is AssignFormat.json else why.to_text())
+                return 0
             if unit is not None:
                 got = assigner.assign({chosen: unit}, extra, day=when)
                 if fmt is AssignFormat.json:

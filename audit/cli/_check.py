@@ -15,13 +15,6 @@ from ._exit import check_exit, fail, guarded
 from ._options import FindingsFormat, iso_day, weekly_units
 
 
-def _stdin_text() -> str:
-    try:
-        return sys.stdin.buffer.read().decode("utf-8")
-    except UnicodeDecodeError as exc:
-        fail(f"<stdin>: not UTF-8 text ({exc.reason})")
-
-
 def register(app: typer.Typer) -> None:
     @app.command(
         "check",
@@ -60,7 +53,8 @@ def register(app: typer.Typer) -> None:
             def checked(group: list[Path]) -> CheckResult:
                 stdin = group == [Path("-")]
                 return check_config(["<stdin>"] if stdin else group, day=as_of, weekly_units=weekly_counts,
-                                    min_arm_units=min_arm_units, ignore=ignore, text=_stdin_text() if stdin else None)
+                                    min_arm_units=min_arm_units, ignore=ignore,
+                                    text=sys.stdin.buffer if stdin else None)  # the SDK reads it up to its size cap
 
             results = [checked([p]) for p in paths] if separate else [checked(paths)]
             result = sum(results[1:], results[0])

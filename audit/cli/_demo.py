@@ -7,7 +7,7 @@ from pathlib import Path
 import typer
 
 from ..demo import run_demo
-from ._exit import guarded
+from ._exit import demo_exit, guarded
 
 
 def register(app: typer.Typer) -> None:
@@ -20,4 +20,4 @@ def register(app: typer.Typer) -> None:
         seed: int = typer.Option(2026, "--seed", help="Seed of the invented logs."),
     ) -> None:
         """Run the whole job on the invented demo scenario: assign, check, diff, layout, and the SRM audit."""
-        guarded(lambda: run_demo(configs, out, learners, days, seed, echo=typer.echo))
+        guarded(lambda: demo_exit(run_demo(configs, out, learners, days, seed, echo=typer.echo)))

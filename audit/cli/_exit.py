@@ -56,6 +56,11 @@ def srm_exit(result: AuditResult, strict: bool) -> int:
     return FOUND if result.any_srm else OK
 
 
+def demo_exit(behaved: bool) -> int:
+    """1 when a step of the demo did not behave as the story says."""
+    return OK if behaved else FOUND
+
+
 def _hint(exc: BaseException) -> str:
     """What the command line adds to a library error: the option that fixes it."""
     if isinstance(exc, MissingFieldError) and exc.column == exc.field:

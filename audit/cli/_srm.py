@@ -95,6 +95,7 @@ def register(app: typer.Typer) -> None:
         log_format: Optional[str] = typer.Option(None, "--log-format", help="jsonl, csv, tsv or parquet, for "
                                                  "files whose name does not say."),
         quiet: bool = typer.Option(False, "--quiet", help="No progress on stderr."),
+        engine: str = typer.Option("duckdb", "--engine", help="The engine that counts the records (default duckdb)."),
     ) -> None:
         """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
 
@@ -116,7 +117,7 @@ def register(app: typer.Typer) -> None:
                     sources, config=config, expect=expected, segments=terms, auto_segments=automatic,
                     columns=column_map(column), threshold=cutoff, config_versions=config_versions,
                     replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units,
-                    log_format=log_format, progress=None if quiet else _StderrProgress())
+                    log_format=log_format, engine=engine, progress=None if quiet else _StderrProgress())
             report = _report(result, fmt)
             if out is not None:
                 out.write_text(report, encoding="utf-8")

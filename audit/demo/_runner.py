@@ -4,8 +4,8 @@ The demo runs the real `sortition` commands, as a user would type them, on
 the invented language-learning scenario of configs_example/: assign a few learners,
 check the configs, catch two bad changes before they ship, show the free
 traffic, then write two weeks of exposure logs with a planted fault and let
-the audit find, localise and explain it. Every step checks its exit code; the
-demo exits 1 if any step did not behave as it should.
+the audit find, localise and explain it. Every step checks its exit code, and
+the runner says whether every step behaved as it should.
 """
 
 from __future__ import annotations
@@ -60,8 +60,8 @@ def _changed_copy(configs: Path, target: Path, edit: tuple[str, str]) -> Path:
 
 
 def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int,
-             echo: Callable[[str], None] = print) -> int:
-    """Write the demo's changed configs and invented logs into `out`, run each step; 0 when all behaved."""
+             echo: Callable[[str], None] = print) -> bool:
+    """Write the demo's changed configs and invented logs into `out`, run each step; True when all behaved."""
     if not configs.is_dir():
         raise AuditError(f"{configs}: no such directory; run the demo from the repository top, or give its configs")
 
@@ -96,7 +96,7 @@ def run_demo(configs: Path, out: Path, learners: int, days: int, seed: int,
     echo(f"== Found by the audit: {'yes, localised to the same segment' if found else 'NO'}")
     echo(f"== Report: {report}")
     ok = found and all(r.returncode == s.expect for r, s in zip(results, steps))
-    return 0 if ok else 1
+    return ok
 
 
 def _describe(fault: dict | None) -> str:

@@ -9,10 +9,11 @@ review tools can show what a rule is for.
 from __future__ import annotations
 
 import json
-from importlib import metadata
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Protocol
 from urllib.parse import quote
+
+from bucketing import __version__
 
 SARIF_VERSION = "2.1.0"
 SARIF_SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
@@ -32,13 +33,6 @@ class LocatedFinding(Protocol):
     def column(self) -> int: ...
     @property
     def message(self) -> str: ...
-
-
-def tool_version() -> str:
-    try:
-        return metadata.version("sortition")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
 
 
 def artifact_uri(file: str, root: Path | None = None) -> str:
@@ -76,7 +70,7 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
         results.append(result)
     driver = {
         "name": tool,
-        "version": version or tool_version(),
+        "version": version or __version__,
         "rules": [{"id": rule, "shortDescription": {"text": rules[rule]}} for rule in rule_ids],
     }
     return {

@@ -27,20 +27,14 @@ VERSION_COLUMNS = ["config", "unit_type"]
 class DuckDBEngine:
     name = "duckdb"
 
-    def __init__(self, threads: int | None = None, memory_limit: str | None = None) -> None:
-        self.threads = threads
-        self.memory_limit = memory_limit
-
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
              keep_versions: bool, log_format: str | None = None,
              progress: Progress | None = None) -> DuckDBUnitTables:
         names = FieldNames.of(columns, attributes)
         if _is_paths(source):
-            scan = LogScan(resolve_files(source, log_format), names, progress=progress, threads=self.threads,
-                           memory_limit=self.memory_limit)
+            scan = LogScan(resolve_files(source, log_format), names, progress=progress)
         else:
-            scan = LogScan([], names, table=source, progress=progress, threads=self.threads,
-                           memory_limit=self.memory_limit)
+            scan = LogScan([], names, table=source, progress=progress)
         return DuckDBUnitTables(scan, keep_versions)
 
 

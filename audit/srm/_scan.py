@@ -36,8 +36,7 @@ class LogScan:
     """An open DuckDB connection with the `exposure_rows` view over the given logs."""
 
     def __init__(self, files: Sequence[LogFile], names: FieldNames, *, table: Any = None,
-                 progress: Progress | None = None, threads: int | None = None,
-                 memory_limit: str | None = None) -> None:
+                 progress: Progress | None = None) -> None:
         if not files and table is None:
             raise LogError("no log files given")
         self.names = names
@@ -59,10 +58,6 @@ class LogScan:
         self.con.execute("SET enable_progress_bar = true")  # progress is tracked for query_progress() ...
         self.con.execute("SET enable_progress_bar_print = false")  # ... but never printed on stdout
         self.con.execute("SET preserve_insertion_order = false")  # every query that needs an order says so
-        if threads:
-            self.con.execute(f"SET threads = {int(threads)}")
-        if memory_limit:
-            self.con.execute(f"SET memory_limit = {_sql.text(memory_limit)}")
         self.con.execute(_sql.NORMALISE)
         self.sources = [f.path for f in self.files]
         selects = [self._table_select(table)] if table is not None else self._file_selects()
