@@ -7,9 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audit.srm._stats import holm_adjust
-from audit.srm._exact import split_tests
-from audit.srm._per_unit import duplicate_logging_evidence
+from audit.srm import duplicate_logging_evidence, holm_adjust, split_tests
 
 SEGMENTS = 200
 

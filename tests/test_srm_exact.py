@@ -6,9 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit.srm._exact import (
-    _exact_multinomial_p_value, binomial_p_values, compositions, split_test, split_tests,
-)
+from audit.srm import binomial_p_values, split_test, split_tests
 
 
 def test_binomial_p_values_equal_scipy_binomtest():
@@ -77,7 +75,7 @@ def test_chi_square_would_exceed_the_holm_level_where_the_exact_test_stays_withi
     # expected count >= 5, so Cochran's rule allows it) rejects about 18 times too often; the test that
     # runs stays within the level.
     shares, level = np.array([0.98, 0.01, 0.01]), 0.0005 / 200
-    outcomes = compositions(700, 3)
+    outcomes = np.array([(a, b, 700 - a - b) for a in range(701) for b in range(701 - a)])
     pmf = stats.multinomial.pmf(outcomes, 700, shares)
     chi_square = stats.chi2.sf(((outcomes - 700 * shares) ** 2 / (700 * shares)).sum(axis=1), 2)
     ours = split_tests(outcomes, shares).p_value
@@ -98,18 +96,6 @@ def test_exact_multinomial_equals_brute_force_over_scipy_pmf():
         result = split_test(observed, shares)
         assert result.test == "exact-multinomial"
         assert result.p_value == pytest.approx(reference, rel=1e-9)
-
-
-def test_exact_multinomial_with_two_arms_is_the_binomial_test():
-    # Reference: scipy.stats.binomtest; two arms are the binomial case of the multinomial.
-    assert _exact_multinomial_p_value(np.array([9, 3]), np.array([0.5, 0.5])) == pytest.approx(
-        stats.binomtest(9, 12, 0.5).pvalue, rel=1e-12)
-
-
-def test_compositions_count_every_outcome_once():
-    rows = compositions(6, 3)
-    assert len(rows) == 28  # C(6 + 2, 2) (stars and bars)
-    assert len({tuple(r) for r in rows}) == 28 and (rows.sum(axis=1) == 6).all()
 
 
 def test_monte_carlo_estimate_lies_within_its_stated_error():

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import optimize, special
 
-from audit.srm._onset import onset
+from audit.srm import onset
 
 
 def planted(seed: int, units_per_day: float, days: int = 28) -> tuple[np.ndarray, int]:

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit.srm._per_unit import duplicate_logging_evidence, records_rank_test
+from audit.srm import duplicate_logging_evidence, records_rank_test
 from tests.srm_simulations import balanced_records
 
 

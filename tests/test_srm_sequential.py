@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from audit.srm._sequential import sequential_p_values
+from audit.srm import sequential_p_values
 
 
 def test_one_design_is_the_dirichlet_multinomial_bayes_factor():

@@ -3,7 +3,7 @@
 import pytest
 from scipy import stats
 
-from audit.srm._stats import DEFAULT_THRESHOLD
+from audit.srm import DEFAULT_THRESHOLD
 from tests.srm_simulations import duplicate_cause_fires, segment_alarms
 
 DESIGNS = [(0.5, 0.5), (0.9, 0.1), (0.99, 0.01)]

@@ -32,9 +32,13 @@ def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
         return []
     if result.srm_scope == "segment":
         worst = min((s for s in result.segments if s.srm), key=lambda s: s.p_adjusted)
+        tested = f"anytime-valid p = {p_text(worst.sequential_p_value)}" if worst.sequential_p_value is not None \
+            else f"p = {p_text(worst.p_value)} ({worst.test})"
         lines = [f"the overall split looks fine (p = {p_text(result.p_value)}), but segment {worst.label} does not: "
-                 f"p = {p_text(worst.p_value)} ({worst.test}), {p_text(worst.p_adjusted)} after Holm over "
-                 f"{len(result.segments)} segments"]
+                 f"{tested}, {p_text(worst.p_adjusted)} after Holm over {len(result.segments)} segments"]
+    elif result.verdict == "anytime":
+        lines = [f"the overall split is off on the anytime-valid test: p = {p_text(result.sequential_p_value)} "
+                 f"< {threshold:g}"]
     else:
         lines = [f"the overall split is off: p = {p_text(result.p_value)} ({result.test}) < {threshold:g}"]
     where = result.localisation

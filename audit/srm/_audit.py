@@ -25,14 +25,17 @@ from .._errors import AuditError, LogError
 from . import _stats
 from ._designs import Design, Expectation, designs_from_config, designs_from_logs
 from ._diagnosis import diagnose
-from ._engine import CensusRow, CountingEngine, Progress, Segment, UnitTables, engine_named
+from ._engine import CONFIG_VERSION, FIRST_DAY, CensusRow, CountingEngine, Progress, Segment, UnitTables, Window, engine_named
 from ._exact import split_test
 from ._per_unit import duplicate_logging_evidence
 from ._replay import replay, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
-from ._segments import localise, mismatch_start, test_segments, timeline, without_worst
+from ._segments import arm_totals, localise, mismatch_start, test_segments, timeline, without_worst
 
 DEFAULT_REPLAY_UNITS = 50_000
+FIXED, ANYTIME = "fixed", "anytime"  # what the verdict rests on: the fixed-horizon tests or the anytime-valid ones
+VERDICTS = (FIXED, ANYTIME)
+UNNAMED_EXPERIMENT = "(unnamed)"  # with an expected split, the experiment of logs that name none
 EXAMPLES = 5
 AUTO_MAX_VALUES = 50  # an automatic segment attribute with more values than this is left out, with a note
 
@@ -45,6 +48,7 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
                columns: Mapping[str, str] | None = None, threshold: float = _stats.DEFAULT_THRESHOLD,
                config_versions: str | Path | None = None, replay_units: int = DEFAULT_REPLAY_UNITS,
                log_format: str | None = None, engine: str | CountingEngine = "duckdb",
+               since: date | None = None, until: date | None = None, verdict: str = FIXED,
                progress: Progress | None = None) -> AuditResult:
     """Audit exposure records for sample ratio mismatch: is each experiment's split of units as designed?
 
@@ -57,12 +61,21 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
     - `segments`: column names to test segment by segment; a tuple of names tests their combinations.
       `auto_segments` adds every other column of the logs.
     - `columns`: record field -> log column, for logs that use other names.
-    - `config_versions`: a directory of past config versions; each unit is replayed under its record's.
+    - `config_versions`: a directory of past config versions; each unit is judged against the version its
+      first record names (a ramp is a mixture of designs) and replayed under it.
+    - `since`, `until`: audit only the records of these days (both included); each unit is taken at its
+      first exposure within them.
+    - `verdict`: "fixed" (default) bases the verdict on the fixed-horizon tests, right for a one-off audit;
+      "anytime" on the anytime-valid tests, right for a job that re-runs every day on the growing logs.
 
     Returns a frozen `AuditResult`; `result.to_dict()` is the JSON of `sortition srm --format json`.
     """
     if not 0 < threshold < 1:
         raise AuditError(f"the threshold must be between 0 and 1, found {threshold}")
+    if verdict not in VERDICTS:
+        raise AuditError(f"the verdict is based on one of {', '.join(VERDICTS)}, found {verdict!r}")
+    if since is not None and until is not None and since > until:
+        raise AuditError(f"the window starts ({since}) after it ends ({until})")
     loaded = config if config is None or isinstance(config, Config) else load_config(Path(config))
     if loaded is None and expect is None:
         raise AuditError("give a config or an expected split")
@@ -80,7 +93,7 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
 
     def read(names: list[str]) -> UnitTables:
         return counting.read(paths, columns, names, keep_versions=bool(replay_configs), log_format=log_format,
-                             progress=progress)
+                             progress=progress, defaults={"experiment": UNNAMED_EXPERIMENT} if expect else None)
 
     tables = read(attributes)
     try:
@@ -89,7 +102,8 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
             automatic = [(name,) for name in tables.other_columns() if (name,) not in terms]
             tables.close()
             tables = read(attributes + [name for (name,) in automatic])
-        plan = _Plan(loaded, expect, terms + automatic, set(automatic), threshold, replay_configs, replay_units)
+        plan = _Plan(loaded, expect, terms + automatic, set(automatic), threshold, replay_configs, replay_units,
+                     (since, until), verdict)
         return _audit(tables, plan)
     finally:
         tables.close()
@@ -120,6 +134,8 @@ class _Plan:
     threshold: float
     replay_configs: dict[str, Config]
     replay_units: int
+    window: Window = (None, None)
+    verdict: str = "fixed"
     crowded: set[tuple[str, ...]] = field(default_factory=set)
     notes: list[str] = field(default_factory=list)
 
@@ -141,7 +157,7 @@ class _Census:
 def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
     plan.notes += tables.notes
     designs = designs_from_config(plan.config) if plan.config is not None and plan.expect is None else None
-    rows = tables.census(designs or [])
+    rows = tables.census(designs or [], plan.window)
     if designs is None:
         assert plan.expect is not None
         designs = designs_from_logs([(r.layer, r.experiment, r.arm) for r in rows
@@ -217,30 +233,64 @@ def _near_miss_notes(unknown: Sequence[UnknownRecords], designs: Sequence[Design
 
 
 class _Splits:
-    """An experiment's units per arm, from the engine's tables (the `Splits` of `_segments`)."""
+    """An experiment's units per arm, or per design version and arm when its weights were ramped (`Splits`).
 
-    def __init__(self, tables: UnitTables, experiment: int, design: Design) -> None:
+    With a ramp, row 0 of `shares` is the design of the config audited against (for units whose record
+    names no version among the ramp's), then one row per config version.
+    """
+
+    def __init__(self, tables: UnitTables, experiment: int, design: Design,
+                 versions: Mapping[str, tuple[float, ...]]) -> None:
         self.tables = tables
         self.experiment = experiment
-        self.shares = np.asarray(design.shares)
+        self.rows = {version: row + 1 for row, version in enumerate(versions)}
+        self.shares = np.asarray([design.shares, *versions.values()] if versions else design.shares)
+
+    def _grouped(self, keys: Sequence[str], within: Segment | None = None,
+                 without: Segment | None = None) -> dict[tuple, np.ndarray]:
+        if not self.rows:
+            return {key: np.asarray(c) for key, c in
+                    self.tables.grouped_units(self.experiment, keys, within, without).items()}
+        folded: dict[tuple, np.ndarray] = {}
+        for key, counts in self.tables.grouped_units(self.experiment, (*keys, CONFIG_VERSION), within,
+                                                     without).items():
+            split = folded.setdefault(key[:-1], np.zeros(self.shares.shape, dtype=np.int64))
+            split[self.rows.get(key[-1], 0)] += counts
+        return folded
 
     def split(self, within: Segment | None = None, without: Segment | None = None) -> np.ndarray:
-        return np.asarray(self.tables.arm_units(self.experiment, within=within, without=without))
+        return self._grouped((), within, without).get((), np.zeros(self.shares.shape, dtype=np.int64))
 
     def daily(self, within: Segment | None = None) -> dict[date, np.ndarray]:
-        return {day: np.asarray(c) for day, c in self.tables.day_units(self.experiment, within=within).items()}
+        return {day: counts for (day,), counts in sorted(self._grouped((FIRST_DAY,), within).items())}
 
     def by_value(self, names: Sequence[str], within: Segment | None = None) -> dict[tuple[str, ...], np.ndarray]:
-        return {values: np.asarray(c) for values, c in self.tables.segment_units(self.experiment, names,
-                                                                                  within=within).items()}
+        return self._grouped(tuple(names), within)
+
+
+def _version_shares(design: Design, plan: _Plan) -> dict[str, tuple[float, ...]]:
+    """Each config version's shares of the design's arms (0 for an arm it lacks), when versions differ.
+
+    Empty when the audit runs on an expected split, or every version gives the design's shares.
+    """
+    if plan.expect is not None:
+        return {}
+    found = {}
+    for version, config in plan.replay_configs.items():
+        match = next((d for d in designs_from_config(config)
+                      if (d.layer, d.experiment) == (design.layer, design.experiment)), None)
+        if match is not None:
+            by_arm = dict(zip(match.arms, match.shares))
+            found[version] = tuple(by_arm.get(arm, 0.0) for arm in design.arms)
+    return found if set(found.values()) - {design.shares} else {}
 
 
 def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, outside_records: int,
                 logged: list[list[int]]) -> ExperimentResult:
     """One experiment's test; `logged` gives, per arm, its records and its repeated records."""
-    splits = _Splits(tables, index, design)
+    splits = _Splits(tables, index, design, _version_shares(design, plan))
     overall = splits.split()
-    counts = [int(c) for c in overall]
+    counts = list(arm_totals(overall))
     summary = tables.unit_summary(index, EXAMPLES)
     test = split_test(overall, splits.shares)
     total = sum(counts)
@@ -268,13 +318,15 @@ def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, out
     )
     if total == 0:
         return result
-    segments = test_segments(splits, overall, _segment_counts(splits, plan), plan.threshold)
-    scope = "overall" if result.srm else "segment" if any(s.srm for s in segments) else None
+    anytime = plan.verdict == ANYTIME
+    segments = test_segments(splits, overall, _segment_counts(splits, plan), plan.threshold, anytime)
     dated = timeline(splits, plan.threshold)
+    overall_off = dated.days[-1].sequential_p < plan.threshold if anytime else result.srm
+    scope = "overall" if overall_off else "segment" if any(s.srm for s in segments) else None
     sequential = _stats.first_crossing([d.sequential_p for d in dated.days], plan.threshold)
     start = mismatch_start(segments, scope)
     result = replace(
-        result, srm=scope is not None, srm_scope=scope, days=tuple(dated.days),
+        result, srm=scope is not None, srm_scope=scope, verdict=plan.verdict, days=tuple(dated.days),
         first_srm_day=dated.first_crossing if scope else None,
         onset_day=dated.onset_day if scope else None, onset_interval=dated.onset_interval if scope else None,
         sequential_p_value=dated.days[-1].sequential_p if dated.days else 1.0,

@@ -9,12 +9,13 @@ much smaller table.
 
 from __future__ import annotations
 
-from datetime import date
 from typing import Any, Mapping, Sequence
 
 from . import _sql
 from ._designs import Design
-from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
+from ._engine import (
+    CONFIG_VERSION, FIRST_DAY, NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary, Window,
+)
 from ._files import resolve_files
 from ._malformed import malformed_records
 from ._results import Malformed
@@ -28,9 +29,9 @@ class DuckDBEngine:
     name = "duckdb"
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
-             keep_versions: bool, log_format: str | None = None,
-             progress: Progress | None = None) -> DuckDBUnitTables:
-        names = FieldNames.of(columns, attributes)
+             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None,
+             defaults: Mapping[str, str] | None = None) -> DuckDBUnitTables:
+        names = FieldNames.of(columns, attributes, defaults)
         if _is_paths(source):
             scan = LogScan(resolve_files(source, log_format), names, progress=progress)
         else:
@@ -58,9 +59,9 @@ class DuckDBUnitTables:
     def other_columns(self) -> list[str]:
         return self.scan.other_columns()
 
-    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
+    def census(self, designs: Sequence[Design], window: Window = (None, None)) -> list[CensusRow]:
         outside = _sql.outside_case(designs, self.layer_logged)
-        self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text), "reading records")
+        self.scan.query(_sql.unit_arms(outside, self.kept, self.scan.times_as_text, window), "reading records")
         return [CensusRow(*row) for row in self.scan.query(_sql.CENSUS, "counting records")]
 
     def epoch_notes(self) -> list[str]:
@@ -77,15 +78,6 @@ class DuckDBUnitTables:
         where = _sql.segment_where(within or {}, self.names)
         return f"{where} AND NOT ({_sql.segment_where(without, self.names)})" if without else where
 
-    def arm_units(self, experiment: int, within: Segment | None = None,
-                  without: Segment | None = None) -> ArmCounts:
-        counts = [0] * self.arms[experiment]
-        for arm, units in self.scan.query(f"""
-                SELECT arm, count(*) FROM unit_rows WHERE {_sql.tested_units(experiment, self._where(within, without))}
-                GROUP BY arm""", "counting arms"):
-            counts[arm] = units
-        return counts
-
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         (multi, forced), = self.scan.query(f"""
             SELECT count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi)
@@ -95,23 +87,22 @@ class DuckDBUnitTables:
             ORDER BY unit LIMIT {int(examples)}""")
         return UnitSummary(multi, forced, [tuple(row) for row in rows])
 
-    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
-        by_day: dict[date, ArmCounts] = {}
-        for day, arm, units in self.scan.query(f"""
-                SELECT CAST(first_ts AS DATE), arm, count(*) FROM unit_rows
-                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL ORDER BY 1"""):
-            by_day.setdefault(day, [0] * self.arms[experiment])[arm] = units
-        return by_day
-
-    def segment_units(self, experiment: int, names: Sequence[str],
-                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
-        keys = ", ".join(f"coalesce({self.names.attribute_column(n)}, {_sql.text(NO_VALUE)})" for n in names)
-        grouped: dict[tuple[str, ...], ArmCounts] = {}
+    def grouped_units(self, experiment: int, keys: Sequence[str], within: Segment | None = None,
+                      without: Segment | None = None) -> dict[tuple, ArmCounts]:
+        columns = [self._key(key) for key in keys]
+        grouped: dict[tuple, ArmCounts] = {}
         for row in self.scan.query(f"""
-                SELECT {keys}, arm, count(*) FROM unit_rows
-                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL""", "testing segments"):
-            grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
+                SELECT {", ".join([*columns, "arm", "count(*)"])} FROM unit_rows
+                WHERE {_sql.tested_units(experiment, self._where(within, without))} GROUP BY ALL""", "counting units"):
+            grouped.setdefault(tuple(row[:len(keys)]), [0] * self.arms[experiment])[row[len(keys)]] = row[-1]
         return grouped
+
+    def _key(self, key: str) -> str:
+        if key == FIRST_DAY:
+            return "CAST(first_ts AS DATE)"
+        if key == CONFIG_VERSION:
+            return "config" if "config" in self.kept else "NULL::VARCHAR"
+        return f"coalesce({self.names.attribute_column(key)}, {_sql.text(NO_VALUE)})"
 
     def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:
         histogram: dict[int, ArmCounts] = {}

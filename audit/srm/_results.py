@@ -110,6 +110,7 @@ class SegmentResult:
     test: str = "none"  # which test ran (see `audit.srm._exact`)
     mc_error: float | None = None  # Monte Carlo only: 99 % upper bound of the p-value minus the estimate
     closed_units: int = 0  # units in an arm the design closes (weight 0)
+    sequential_p_value: float | None = None  # anytime-valid p-value of the segment, when the verdict rests on them
 
     @property
     def label(self) -> str:
@@ -123,6 +124,7 @@ class SegmentResult:
         return {
             "by": dict(self.by), "units": self.units, "test": self.test, "p_value": self.p_value,
             "mc_error": self.mc_error, "p_adjusted": self.p_adjusted, "closed_arm_units": self.closed_units,
+            "sequential_p_value": self.sequential_p_value,
             "srm": self.srm, "chi2": self.chi2, "arm_units": dict(zip(arms, self.arm_units)),
             "explained": self.explained, "p_value_without": self.p_without,
             "replay_checked": self.replay_checked, "replay_mismatch_share": self.replay_mismatch_share,
@@ -221,6 +223,7 @@ class ExperimentResult:
     mc_error: float | None = None  # Monte Carlo only: 99 % upper bound of the p-value minus the estimate
     closed_arm_units: int = 0  # units in an arm the design closes (weight 0): impossible under the design
     srm_scope: str | None = None  # "overall" or "segment" for a mismatch, else None
+    verdict: str = "fixed"  # what `srm` rests on: "fixed" (fixed-horizon tests) or "anytime" (anytime-valid ones)
     duplicate_arm: str | None = None  # the arm that logs its exposures more than once, on valid evidence
     duplicate_basis: str | None = None  # "exact_repeats" or "records_per_unit"
     onset_day: date | None = None  # for a mismatch: the estimated first broken day (change point)
@@ -250,6 +253,7 @@ class ExperimentResult:
             "closed_arm_units": self.closed_arm_units,
             "srm": self.srm,
             "srm_scope": self.srm_scope,
+            "verdict": self.verdict,
             "onset_day": _day(self.onset_day),
             "onset_interval": _interval(self.onset_interval),
             "records": self.records,

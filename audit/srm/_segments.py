@@ -49,16 +49,20 @@ def arm_totals(split: np.ndarray) -> tuple[int, ...]:
 
 def test_segments(splits: Splits, overall: np.ndarray,
                   grouped: Sequence[tuple[tuple[str, ...], Mapping[tuple[str, ...], np.ndarray]]],
-                  threshold: float) -> list[SegmentResult]:
+                  threshold: float, anytime: bool = False) -> list[SegmentResult]:
     """Every segment value of every term tested, Holm-adjusted together; mismatches first, the one explaining most first.
 
-    `grouped` holds, per term (a tuple of attribute names), the split of each value of the term.
+    `grouped` holds, per term (a tuple of attribute names), the split of each value of the term. With
+    `anytime`, Holm adjusts the segments' anytime-valid p-values instead (valid too: the first true
+    segment wrongly flagged needs a p-value below threshold / m at some look, which Ville's inequality
+    bounds by threshold / m per segment).
     """
     tested = [(dict(zip(term, values)), split) for term, by_value in grouped for values, split in by_value.items()]
     if not tested:
         return []
     tests = split_tests([split for _, split in tested], splits.shares)
-    adjusted = _stats.holm_adjust([float(p) for p in tests.p_value])
+    sequential = [_last_sequential(splits, by) for by, _ in tested] if anytime else None
+    adjusted = _stats.holm_adjust(sequential if sequential is not None else [float(p) for p in tests.p_value])
     segments = []
     for index, ((by, split), p) in enumerate(zip(tested, adjusted)):
         test = tests.at(index)
@@ -67,9 +71,16 @@ def test_segments(splits: Splits, overall: np.ndarray,
         segments.append(SegmentResult(by, sum(arms), arms, test.statistic, test.p_value, p_adjusted=p,
                                       srm=p < threshold, explained=shift.explained,
                                       p_without=shift.test_without.p_value, test=test.test, mc_error=test.mc_error,
-                                      closed_units=test.closed_units))
+                                      closed_units=test.closed_units,
+                                      sequential_p_value=sequential[index] if sequential is not None else None))
     segments.sort(key=lambda s: (not s.srm, -s.explained if s.srm else s.p_value, s.p_value, s.label))
     return segments
+
+
+def _last_sequential(splits: Splits, within: Segment) -> float:
+    """The anytime-valid p-value of a segment after its last day."""
+    daily = splits.daily(within)
+    return sequential_p_values(np.array([daily[day] for day in sorted(daily)]), splits.shares)[-1] if daily else 1.0
 
 
 def without_worst(splits: Splits, overall: np.ndarray, segments: Sequence[SegmentResult],

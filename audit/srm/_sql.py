@@ -40,7 +40,8 @@ Values that still cannot be read (a `ts` of "yesterday", a `forced` of
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from datetime import date
 from typing import Iterable, Mapping, Sequence
 
 from bucketing import RECORD_FIELDS
@@ -79,11 +80,13 @@ class FieldNames:
 
     columns: Mapping[str, str]  # record field -> log column, for every field of the record
     attributes: tuple[str, ...] = ()
+    defaults: Mapping[str, str] = field(default_factory=dict)  # record field -> value, where no source has it
 
     @classmethod
-    def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str]) -> FieldNames:
+    def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str],
+           defaults: Mapping[str, str] | None = None) -> FieldNames:
         return cls({name: (columns or {}).get(name, name) for name in RECORD_FIELDS},
-                   tuple(dict.fromkeys(attributes)))
+                   tuple(dict.fromkeys(attributes)), dict(defaults or {}))
 
     def attribute_column(self, name: str) -> str:
         return f"a_{self.attributes.index(name)}"
@@ -163,12 +166,16 @@ def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str
     return Select(f"SELECT {', '.join(select)} FROM {source}", "ts" not in native)
 
 
-def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str) -> Select:
-    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`."""
+def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str, absent: Iterable[str] = ()) -> Select:
+    """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`.
+
+    Fields in `absent` (no sampled record has them) take their value from `names.defaults`, if any.
+    """
     fields = [names.columns[n] for n in RECORD_FIELDS] + list(names.attributes)
     json_paths = "[" + ", ".join(text('$."' + n.replace('"', '\\"') + '"') for n in fields) + "]"
     index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in names.attributes])}
     values = {k: f"v[{i}]" for k, i in index.items()}
+    values.update({n: text(names.defaults[n]) for n in absent if n in names.defaults})
     types = {k: f"t[{i}]" for k, i in index.items()}
     values["unit"] = f"CASE WHEN {types['unit']} = 'VARCHAR' THEN {values['unit']} ELSE integer_text({values['unit']}) END"
     kinds = {"unit": f"CASE WHEN {types['unit']} <> 'NULL' AND {values['unit']} IS NULL "
@@ -217,7 +224,7 @@ def typed_select(source: str, present: Mapping[str, str], names: FieldNames, ext
         column = names.columns[name]
         kind = present.get(column)
         if kind is None:
-            values[name] = "NULL::VARCHAR"
+            values[name] = text(names.defaults[name]) if name in names.defaults else "NULL::VARCHAR"
         elif name in NATIVE_TYPES and kind.startswith(NATIVE_TYPES[name]):
             values[name] = ident(column)
             native.append(name)
@@ -300,14 +307,21 @@ def outside_case(designs: Sequence[Design], layer_logged: bool) -> str:
     return f"coalesce(CASE {' '.join(cases)} END, false)"
 
 
-def unit_arms(outside: str, kept: Sequence[str], epoch_times: bool) -> str:
+def unit_arms(outside: str, kept: Sequence[str], epoch_times: bool,
+              window: tuple[date | None, date | None] = (None, None)) -> str:
     """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
 
     Each row has the unit's records, how many of them repeat another one
     exactly (same unit, arm and time), and its first exposure in that arm:
     the time and the `kept` columns then. Malformed records and records
     outside their experiment's dates are only counted: their rows have no unit.
+    Usable records dated outside `window` (first and last day, both included)
+    are not read at all.
     """
+    since, until = window
+    bounds = ([f"ts >= DATE '{since.isoformat()}'"] if since else []) + \
+        ([f"ts < DATE '{until.isoformat()}' + INTERVAL 1 DAY"] if until else [])
+    inside = f"WHERE _problem IS NOT NULL OR ({' AND '.join(bounds)})" if bounds else ""
     values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
     epoch = "bool_or(_ts_epoch IS NOT NULL)" if epoch_times else "false"
     return f"""
@@ -320,7 +334,7 @@ def unit_arms(outside: str, kept: Sequence[str], epoch_times: bool) -> str:
             FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
                   FROM (SELECT _problem, layer, experiment, arm, {outside} AS outside, unit, ts, forced,
                                _ts_epoch, {values} AS kept
-                        FROM exposure_rows))
+                        FROM exposure_rows {inside}))
             GROUP BY _problem, layer, experiment, arm, outside, unit)"""
 
 

@@ -11,11 +11,10 @@ import time
 import numpy as np
 from scipy import stats
 
-from audit.srm._stats import DEFAULT_THRESHOLD
-from audit.srm._exact import COCHRAN_MINIMUM, binomial_p_values, split_tests
-from audit.srm._onset import onset
-from audit.srm._sequential import sequential_p_values
+from audit.srm import DEFAULT_THRESHOLD, binomial_p_values, onset, sequential_p_values, split_tests
 from tests.srm_simulations import duplicate_cause_fires, segment_alarms
+
+COCHRAN_MINIMUM = 5  # Cochran (1954): the chi-square approximation wants every expected count >= 5
 
 SEGMENT_RUNS = 20_000
 DUPLICATE_RUNS = 2_000
