@@ -42,9 +42,26 @@ __all__ = [
 ]
 
 
+_AUDIT_EXTRA = ("typer", "click", "numpy", "scipy", "duckdb")  # what `pip install 'sortition[audit]'` adds
+
+
+def _missing_extra(exc: ModuleNotFoundError) -> str | None:
+    """The one-line hint when `exc` is a library of the `audit` extra missing (a plain install), else None."""
+    if (exc.name or "").split(".")[0] not in _AUDIT_EXTRA:
+        return None
+    return f"this needs the audit extra ({exc.name} is missing): pip install 'sortition[audit]'"
+
+
 def __getattr__(name: str) -> object:
     if name in _LAZY:
         import importlib
 
-        return getattr(importlib.import_module(_LAZY[name]), name)
+        try:
+            module = importlib.import_module(_LAZY[name])
+        except ModuleNotFoundError as exc:
+            hint = _missing_extra(exc)
+            if hint is None:
+                raise
+            raise ModuleNotFoundError(hint, name=exc.name) from None
+        return getattr(module, name)
     raise AttributeError(f"module 'audit' has no attribute {name!r}")

@@ -6,17 +6,17 @@ with the `audit` extra. Without it, `sortition` says so instead of a traceback.
 
 import sys
 
-AUDIT_EXTRA = ("typer", "click", "numpy", "scipy", "duckdb")  # what `pip install 'sortition[audit]'` adds
+from audit import _missing_extra
 
 
 def main() -> None:
     try:
         from audit.cli import main as run
     except ModuleNotFoundError as exc:
-        if (exc.name or "").split(".")[0] not in AUDIT_EXTRA:
+        hint = _missing_extra(exc)
+        if hint is None:
             raise
-        sys.stderr.write(f"sortition: the command line needs the audit extra ({exc.name} is missing): "
-                         "pip install 'sortition[audit]'\n")
+        sys.stderr.write(f"sortition: {hint}\n")
         raise SystemExit(2) from None
     run()
 

@@ -30,11 +30,13 @@ def format_path(path: Iterable[Any]) -> str:
 
 @dataclass
 class Document:
-    """One file: its plain data and the mark (line, column) of every path in it."""
+    """One file: its plain data, the mark (line, column) of every path in it, and errors found while reading
+    that did not stop the reading (each makes the config unusable)."""
 
     file: str
     data: Any = None
     marks: dict[PathKey, tuple[int, int]] = field(default_factory=dict)
+    findings: list[Problem] = field(default_factory=list)
 
     def locate(self, path: PathKey) -> tuple[int, int]:
         for cut in range(len(path), -1, -1):

@@ -154,16 +154,21 @@ def parse_config(source: str | Path | Iterable[str | Path], *,
         except ConfigError as exc:
             problems.extend(exc.problems)
             continue
+        problems.extend(doc.findings)
         if not isinstance(doc.data, dict):
             problems.append(doc.problem("schema", (), "a config file is a mapping with `format: 1` and `layers`"))
             continue
+        refused = {p.loc for p in doc.findings}
         try:
             parsed = ConfigFile.model_validate(doc.data)
+        except ValidationError as exc:
+            problems.extend(p for p in _schema_problems(doc, exc) if p.loc not in refused)
+            parsed = None
+        if parsed is not None and not refused:
             documents.append((doc, _Parsed(list(enumerate(parsed.layers)), list(enumerate(parsed.holdout)),
                                            parsed.weekly_units)))
-        except ValidationError as exc:
-            problems.extend(_schema_problems(doc, exc))
-            documents.append((doc, _valid_parts(doc.data)))
+        else:
+            documents.append((doc, _valid_parts(doc.data, {loc[:2] for loc in refused})))
     failed = bool(problems)
     config = _merge(documents, [str(p) for p in paths], problems)
     problems.extend(structural_problems(config))
@@ -171,29 +176,37 @@ def parse_config(source: str | Path | Iterable[str | Path], *,
 
 
 class _Parsed(NamedTuple):
-    """What of one file validated: layers and holdouts with their index in the file, weekly_units."""
+    """What of one file validated: layers and holdouts with their index in the file, weekly_units.
+
+    `complete` is False for the valid parts of a file that failed validation.
+    """
 
     layers: list[tuple[int, Layer]]
     holdouts: list[tuple[int, Holdout]]
     weekly_units: dict[str, int]
+    complete: bool = True
 
 
-def _valid_parts(data: dict[str, Any]) -> _Parsed:
-    """The layers and holdouts of a file that failed validation which are valid on their own.
+def _valid_parts(data: dict[str, Any], refused: set[tuple]) -> _Parsed:
+    """The layers and holdouts of a file that failed which are valid on their own and hold no refused value.
 
     The cross-field rules still run over them, so that one layer's typo does
-    not hide another layer's overlap.
+    not hide another layer's overlap; `refused` holds ("layers", i) and
+    ("holdout", i) of the parts with a value refused while reading.
     """
-    def valid(model: type[Layer] | type[Holdout], items: Any) -> list:
+    def valid(key: str, model: type[Layer] | type[Holdout]) -> list:
+        items = data.get(key)
         kept = []
         for i, item in enumerate(items if isinstance(items, list) else []):
+            if (key, i) in refused:
+                continue
             try:
                 kept.append((i, model.model_validate(item)))
             except ValidationError:
                 pass  # reported already, by the validation of the whole file
         return kept
 
-    return _Parsed(valid(Layer, data.get("layers")), valid(Holdout, data.get("holdout")), {})
+    return _Parsed(valid("layers", Layer), valid("holdout", Holdout), {}, complete=False)
 
 
 def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems: list[Problem]) -> Config:
@@ -218,7 +231,9 @@ def _merge(documents: list[tuple[Document, _Parsed]], files: list[str], problems
         layers=tuple(layers),
         holdouts=tuple(holdouts),
         weekly_units=weekly,
-        version=config_version(doc.data for doc, _ in documents),
+        # Over complete files only: the version of a config that failed is never used, and a failed file's
+        # data need not have the shape the version's canonical form expects.
+        version=config_version(doc.data for doc, parsed in documents if parsed.complete),
         files=tuple(files),
         _layer_origins=tuple(layer_origins),
         _holdout_origins=tuple(holdout_origins),

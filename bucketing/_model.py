@@ -13,6 +13,8 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
+from ._errors import shown
+
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]*$"
 SALT_PATTERN = r"^[A-Za-z0-9_.-]+$"
 RANGE_PATTERN = r"^ *[0-9]{1,5} *(- *[0-9]{1,5} *)?$"  # ASCII digits only; 5 digits reach past bucket 9999
@@ -27,14 +29,17 @@ def _exactly_int(value: Any) -> Any:
     return value
 
 
+_ISO_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}\Z")
+
+
 def _iso_date(value: Any) -> Any:
     if isinstance(value, str):
         try:
-            if not re.fullmatch(r"[0-9]{4}-[0-9]{2}-[0-9]{2}", value):
-                raise ValueError  # Python 3.11 would also take 20261103 and 2026-W45-2; 3.10 and the spec do not
+            if not _ISO_DATE.match(value):  # Python 3.11+ would also take 20261103 or 2026-W45-2
+                raise ValueError
             return date.fromisoformat(value)
         except ValueError:
-            raise ValueError(f"expected an ISO date such as 2026-11-03, found {value!r}") from None
+            raise ValueError(f"expected an ISO date such as 2026-11-03, found {shown(value)}") from None
     return value
 
 

@@ -213,11 +213,14 @@ def _ambiguity(text: str, tag: str, value: Any) -> str | None:
 
 
 def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
-    """Turn a composed node into plain values for `shape`, recording the mark of every path in `doc`."""
+    """Turn a composed node into plain values for `shape`, recording the mark of every path in `doc`.
+
+    Values refused as ambiguous are kept (as YAML 1.2 reads them) and listed
+    in `doc.findings`, so that the rest of the file is still read and checked.
+    """
     seen: set[int] = set()
     active: set[int] = set()  # nodes on the way from the root to here: an alias back to one is a cycle
     counts = {"nodes": 0, "aliases": 0}
-    ambiguous: list[Problem] = []  # reported together at the end: one file may hold many
 
     def fail(rule: str, path: PathKey, message: str) -> ConfigError:
         return ConfigError([doc.problem(rule, path, message)])
@@ -321,13 +324,10 @@ def to_plain(doc: Document, node: yaml.Node, shape: Shape) -> Any:
         if core_tag != _NULL:
             reason = _ambiguity(text, core_tag, value)
             if reason is not None:
-                ambiguous.append(doc.problem("yaml-ambiguous", path, reason))
+                doc.findings.append(doc.problem("yaml-ambiguous", path, reason))  # reading goes on: report all
         return value
 
-    plain = convert(node, (), shape)
-    if ambiguous:
-        raise ConfigError(ambiguous)
-    return plain
+    return convert(node, (), shape)
 
 
 def read_text(doc: Document, path: Path, stream: IO[bytes] | None = None) -> str:

@@ -6,7 +6,6 @@ import sys
 from tests.conftest import ROOT
 
 
-
 def test_demo_runs_every_step_and_finds_the_planted_fault(tmp_path):
     done = subprocess.run([sys.executable, "-m", "audit", "demo", "--out", str(tmp_path)],
                           cwd=ROOT, capture_output=True, text=True, timeout=600)

@@ -43,3 +43,7 @@ def test_plain_install_assigns_without_the_audit_libraries(tmp_path):
     assert command.returncode == 2 and command.stdout == ""
     assert command.stderr.strip().splitlines() == [command.stderr.strip()]
     assert "pip install 'sortition[audit]'" in command.stderr and "Traceback" not in command.stderr
+    library = subprocess.run([str(python), "-c", "from audit import audit_logs"], capture_output=True, text=True,
+                             cwd=tmp_path, timeout=120)
+    assert library.returncode == 1
+    assert library.stderr.strip().splitlines()[-1].endswith("is missing): pip install 'sortition[audit]'")

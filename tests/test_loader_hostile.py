@@ -60,6 +60,10 @@ def test_the_base_config_loads():
     ('"0-4999"', '"' + "1" * 5000 + '"', ("buckets", 0)),
     ('">=7.2"', '">=7.' + "1" * 5000 + '"', ("eligible", "app_version")),
     ('">=7.2"', '">=' + ".".join(["1"] * 3000) + '"', ("eligible", "app_version")),
+    ('["0-4999"]\n', '["0-4999"]\n        start: 20261103\n', ("start",)),
+    ('["0-4999"]\n', '["0-4999"]\n        start: 2026-W45-2\n', ("start",)),
+    ('["0-4999"]\n', '["0-4999"]\n        start: 2026-02-30\n', ("start",)),
+    ('["0-4999"]\n', '["0-4999"]\n        start: ２０２６-１１-０３\n', ("start",)),
     ("format: 1", "format: true", ("format",)),
     ("format: 1", "format: 01", ("format",)),
     ("format: 1", "format: 1.0", ("format",)),
@@ -102,6 +106,9 @@ def test_non_ascii_digits_in_a_version_are_refused(digit):
     ("format: 1\n? [a, b]\n: c\n", "schema"),
     ("format: 1\n!!binary aGVsbG8=: c\n", "schema"),
     ("format: 1\n--- \nformat: 1\n", "yaml-syntax"),
+    # Found by the long fuzz run: a file that fails validation with layers or holdouts of the wrong shape.
+    ("format: 1\nholdout: x\nlayers: [1, {name: a}]\n", "schema"),
+    ("format: 1\nholdout: [7]\nlayers: {a: 1}\nweekly_units: [1]\n", "schema"),
 ])
 def test_recursion_depth_and_shape_attacks_are_refused(text, rule):
     errors = refusal(text)

@@ -293,3 +293,12 @@ def test_exposure_record_fields_and_allow_list(example_dir):
         assert record["arm"] != "not-an-arm" and record["config"] == assigner.version
         # country and app_version are targeted by paywall's `eligible`; platform is named by the service.
         assert {k: record[k] for k in list(record)[8:]} == {"country": "NL", "app_version": "7.4.0", "platform": "ios"}
+
+
+def test_section_references_point_at_sections():
+    """Every '§N.N' of the specification names one of its own headings (the YAML standard's §10.3.2 aside)."""
+    outside = {"10.3.2"}
+    headings = set(re.findall(r"^#+ (\d+(?:\.\d+)*)\.? ", SPEC, re.MULTILINE))
+    referenced = set(re.findall(r"§(\d+(?:\.\d+)*)", SPEC)) - outside
+    assert len(headings) > 30 and referenced
+    assert not referenced - headings, f"docs/SPEC.md refers to sections it does not have: {sorted(referenced - headings)}"

@@ -214,3 +214,18 @@ def test_every_error_of_a_file_with_many_ambiguous_values_is_reported():
         load_config(Path("t.yaml"), text=text)
     assert [p.loc[-1] for p in caught.value.problems] == ["a", "b", "c", "d"]
     assert {p.rule for p in caught.value.problems} == {"yaml-ambiguous"}
+
+
+def test_an_ambiguous_value_hides_nothing_else_in_the_file():
+    # A refused value in one layer; a misspelt rollout arm in a second layer and an unknown key elsewhere still show.
+    text = config_with().replace("params: {size: 1}", "params: {size: yes}") + """\
+  - name: second
+    unit: learner
+    experiments:
+      - {name: beta, status: running, buckets: ["0-99"], rollout: tret, arms: [{name: treat, weight: 100}]}
+"""
+    text = text.replace("weekly_units:", "weekly_unit:")
+    config, problems = parse_config("t.yaml", text=text)
+    assert config is None
+    assert [(p.rule, p.loc[:2]) for p in problems] == [
+        ("yaml-ambiguous", ("layers", 0)), ("schema", ("weekly_unit",)), ("rollout-unknown-arm", ("layers", 1))]

@@ -102,7 +102,7 @@ def write_demo_logs(config: Config | str | Path, out_dir: str | Path, *, seed: i
                             and la.arm == FAULT_ARM and all(attrs[k] == v for k, v in FAULT_SEGMENT.items())):
                         continue
                     emit(d, _record(day_list[d], rng, unit, unit_type, layer, la.experiment, la.arm,
-                                    got.config, False, attrs))
+                                    got.config_version, False, attrs))
 
     population("L", learners, "learner")
     population("D", devices, "device")
@@ -140,7 +140,7 @@ def _plant_noise(assigner: Assigner, rng: random.Random, day_list: list[date], l
             for layer, la in got.layers.items():
                 if la.forced:
                     lines[d].append(json.dumps(_record(day_list[d], rng, qa, "learner", layer, la.experiment, la.arm,
-                                                       got.config, True, qa_attrs), separators=(",", ":")))
+                                                       got.config_version, True, qa_attrs), separators=(",", ":")))
                     counts["forced_records"] += 1
     old_client = {"country": "DE", "platform": "android", "app_version": "7.1.5"}
     layer, experiment, arm = RETIRED_EXPERIMENT
