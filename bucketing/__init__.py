@@ -20,7 +20,7 @@ from ._explain import (AfterEnd, Assigned, BeforeStart, Explanation, Forced, Hel
 from ._exposure import RECORD_FIELDS, CallbackSink, ExposureSink, JsonLinesSink, LoggingSink, MemorySink
 from ._hashing import BUCKETS, bucket_of
 from ._loader import CONFIG_SUFFIXES, load_config, parse_config
-from ._model import Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
+from ._model import Approval, Arm, ConfigFile, Experiment, Holdout, Layer, Waiver, config_schema, experiment_salt, hundredths
 from ._rules import RULES
 from ._watch import ConfigWatcher, ReloadAttempt
 
@@ -39,6 +39,7 @@ __all__ = [
     "Layer",
     "Experiment",
     "Arm",
+    "Approval",
     "Holdout",
     "Waiver",
     "load_config",

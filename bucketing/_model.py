@@ -62,6 +62,15 @@ class Waiver(_Strict):
     reason: Annotated[str, Field(min_length=1)]
 
 
+class Approval(_Strict):
+    """`reassign_ok` as an object: why a change may move a running experiment's units, and at most how many."""
+
+    why: Annotated[str, Field(min_length=1)]
+    moves_up_to: Annotated[Number, Field(gt=0, le=100, description=(
+        "Percent of the experiment's units this change may switch to another arm or drop, as `diff` counts them; "
+        "a change moving more is blocked."))]
+
+
 class Arm(_Strict):
     name: Name
     weight: Annotated[Number, Field(ge=0, le=100)]
@@ -86,9 +95,11 @@ class Experiment(_Strict):
     owner: str | None = None
     unit: Name | None = Field(default=None, description="Unit type; when given it must equal the layer's.")
     waivers: list[Waiver] = Field(default_factory=list, description="check rules turned off for this experiment.")
-    reassign_ok: str | None = Field(
+    reassign_ok: str | Approval | None = Field(
         default=None,
-        description="Reason why this change may move units between arms; `diff` then reports instead of failing.",
+        description="Approval for this change to move units of the running experiment: the reason, or "
+                    "{why, moves_up_to}. It covers only the change that adds it or changes it; `diff` reports one "
+                    "carried over unchanged as stale, and it then approves nothing.",
     )
     rollout: Name | None = Field(
         default=None,

@@ -1,5 +1,7 @@
 """Shared fixtures: repository paths, one in-process `sortition` runner, the demo's audited logs (all invented)."""
 
+import shutil
+import subprocess
 from pathlib import Path
 
 import pytest
@@ -68,3 +70,19 @@ def demo(tmp_path_factory):
     logs = write_demo_logs(EXAMPLE, tmp_path_factory.mktemp("demo-logs"), learners=40_000, devices=8_000)
     result = audit_logs(logs.directory, config=EXAMPLE, segments=DEMO_SEGMENTS, replay_units=20_000)
     return logs, result
+
+
+def git(repo: Path, *args: str) -> None:
+    """Run git in `repo` with a throwaway identity."""
+    subprocess.run(["git", "-C", str(repo), "-c", "user.name=Test", "-c", "user.email=test@invalid", *args],
+                   check=True, capture_output=True)
+
+
+@pytest.fixture
+def repo(tmp_path):
+    """A git repository whose one commit holds the invented example configs under configs/."""
+    shutil.copytree(EXAMPLE, tmp_path / "configs")
+    git(tmp_path, "init", "-q")
+    git(tmp_path, "add", ".")
+    git(tmp_path, "commit", "-qm", "invented configs")
+    return tmp_path

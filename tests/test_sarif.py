@@ -70,3 +70,47 @@ def test_artifact_uris_are_relative_inside_the_root_and_file_uris_outside(tmp_pa
     assert artifact_uri(str(inside), root=tmp_path) == "configs/x.yaml"
     assert artifact_uri("/elsewhere/x.yaml", root=tmp_path) == "file:///elsewhere/x.yaml"
     assert artifact_uri("HEAD:configs/x.yaml", root=tmp_path) == "HEAD%3Aconfigs/x.yaml"
+
+
+def test_diff_sarif_carries_every_changed_line_as_a_related_location(sortition, validator, tmp_path):
+    shutil.copytree(EXAMPLE, tmp_path / "old")
+    shutil.copytree(EXAMPLE, tmp_path / "new")
+    lessons = tmp_path / "new" / "lessons.yaml"
+    text = lessons.read_text()
+    text = text.replace("weight: 50\n            params: {lesson_minutes: 10}", "weight: 60\n            params: {lesson_minutes: 10}")
+    text = text.replace("name: short\n            weight: 50", "name: short\n            weight: 40")
+    lessons.write_text(text)
+    got = sortition("diff", str(tmp_path / "old"), str(tmp_path / "new"), "--format", "sarif")
+    log = _valid(validator, json.loads(got.stdout))
+    (result,) = log["runs"][0]["results"]
+    lines = lessons.read_text().splitlines()
+    related = [r["physicalLocation"]["region"]["startLine"] for r in result["relatedLocations"]]
+    assert [lines[n - 1].strip() for n in related] == ["weight: 60", "weight: 40"]
+    assert result["locations"][0]["physicalLocation"]["region"]["startLine"] == related[0]
+    assert [r["message"]["text"] for r in result["relatedLocations"]] == [
+        "weight of 'control': 50 → 60", "weight of 'short': 50 → 40"]
+
+
+def test_diff_sarif_on_an_invalid_config_is_valid_and_carries_the_error(sortition, validator, tmp_path):
+    shutil.copytree(EXAMPLE, tmp_path / "old")
+    shutil.copytree(EXAMPLE, tmp_path / "new")
+    (tmp_path / "new" / "lessons.yaml").write_text("format: 1\nlayers: [\n")
+    got = sortition("diff", str(tmp_path / "old"), str(tmp_path / "new"), "--format", "sarif")
+    assert got.exit_code == 2 and got.stdout.strip()
+    log = _valid(validator, json.loads(got.stdout))
+    run = log["runs"][0]
+    (invocation,) = run["invocations"]
+    assert invocation["executionSuccessful"] is False
+    assert "lessons.yaml" in invocation["toolExecutionNotifications"][0]["message"]["text"]
+    (result,) = run["results"]
+    assert result["ruleId"] == "yaml-syntax" and result["level"] == "error"
+    assert result["locations"][0]["physicalLocation"]["artifactLocation"]["uri"].endswith("new/lessons.yaml")
+
+
+def test_diff_sarif_on_a_missing_base_is_valid_and_says_what_is_missing(sortition, validator, repo):
+    got = sortition("diff", str(repo / "configs"), "--base", "nosuchref", "--format", "sarif")
+    assert got.exit_code == 2
+    log = _valid(validator, json.loads(got.stdout))
+    (invocation,) = log["runs"][0]["invocations"]
+    assert invocation["executionSuccessful"] is False and log["runs"][0]["results"] == []
+    assert "'nosuchref' is not in the git clone" in invocation["toolExecutionNotifications"][0]["message"]["text"]

@@ -9,10 +9,19 @@ shares are counts of buckets, exact. Where a salt changes, the old and new
 buckets of a unit are independent hashes, so the shares are products of
 bucket counts: exact in expectation, not unit by unit. Eligibility and dates
 cannot be counted from buckets; a change there is named with an unknown share.
+
+Two things let a running experiment's units move. An approval
+(`reassign_ok`) covers only the change that adds it or changes it: one
+carried over unchanged from the old version approves nothing and is
+reported as stale. A staged rollout (`rollout: <arm>`) may move units into
+its released arm without approval; a unit moving anywhere else needs one.
+Each finding points at the lines that changed, the first as its place and
+all of them as related places.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
@@ -20,7 +29,8 @@ from typing import Any
 
 import numpy as np
 
-from bucketing import BUCKETS, Config, Experiment, Layer, Problem, experiment_salt, load_config
+from bucketing import (BUCKETS, Approval, Config, Experiment, Layer, Problem, experiment_salt, format_path,
+                       load_config)
 
 CONTINUING = ("running", "paused")
 ZERO = Fraction(0)
@@ -156,6 +166,95 @@ def percent_text(share: Fraction | None) -> str:
     return "-" if share is None else f"{float(share) * 100:.2f} %"
 
 
+@dataclass(frozen=True)
+class RolloutShare:
+    """How far a staged rollout has gone: its released arm's share of the experiment, and of all units of the type.
+
+    `of_units` counts held-out units and units outside the experiment's ranges
+    in the whole, never in the arm; eligibility is not counted (it depends on
+    attributes, not buckets).
+    """
+
+    arm: str
+    of_experiment: Fraction
+    of_units: Fraction
+    unit: str  # the unit type
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"arm": self.arm, "experiment_share": float(self.of_experiment), "layer_share": float(self.of_units)}
+
+
+def rollout_share(config: Config, layer: Layer, exp: Experiment) -> RolloutShare | None:
+    """The released arm's current share, or None when the experiment is no rollout (or names no arm of its own)."""
+    arm = next((arm for arm in exp.arms if arm.name == exp.rollout), None)
+    if arm is None:
+        return None
+    of_experiment = Fraction(arm.width, BUCKETS)
+    return RolloutShare(arm.name, of_experiment, traffic(placement(config, layer, exp)) * of_experiment, layer.unit)
+
+
+@dataclass(frozen=True)
+class ChangedLine:
+    """A line of the new config that differs from the old version, and what changed there."""
+
+    file: str
+    line: int
+    column: int
+    path: str
+    what: str
+    counted: bool  # a change whose effect bucket arithmetic counts (not eligibility, dates, notes)
+    loc: tuple = ()  # the place in its file as keys and indexes, as `Problem.loc`
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"file": self.file, "line": self.line, "column": self.column, "path": self.path, "what": self.what}
+
+
+@dataclass(frozen=True)
+class DiffFinding(Problem):
+    """A finding of `diff`: placed on the first line that changed, with every changed line as a related place."""
+
+    related: tuple[ChangedLine, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"rule": self.rule, "severity": self.severity, "file": self.file, "line": self.line,
+                "column": self.column, "path": self.path, "message": self.message,
+                "related": [place.to_dict() for place in self.related]}
+
+
+APPROVAL_STATES = ("new", "changed", "stale")
+
+
+@dataclass(frozen=True)
+class ApprovalState:
+    """An experiment's `reassign_ok` in the new version, and whether this change added it, changed it, or kept it."""
+
+    why: str
+    moves_up_to: Fraction | None  # share of the experiment's units the approval lets move; None: no limit given
+    state: str  # one of APPROVAL_STATES
+
+    @property
+    def fresh(self) -> bool:
+        """Whether it approves this change: only an approval this change adds or changes does."""
+        return self.state != "stale"
+
+    def to_dict(self) -> dict[str, Any]:
+        limit = None if self.moves_up_to is None else float(self.moves_up_to * 100)
+        return {"why": self.why, "moves_up_to": limit, "state": self.state}
+
+
+def approval_state(old_exp: Experiment | None, new_exp: Experiment) -> ApprovalState | None:
+    approval = new_exp.reassign_ok
+    if approval is None:
+        return None
+    if old_exp is None or old_exp.reassign_ok is None:
+        state = "new"
+    else:
+        state = "stale" if old_exp.reassign_ok == approval else "changed"
+    if isinstance(approval, Approval):
+        return ApprovalState(approval.why, Fraction(round(approval.moves_up_to * 100), BUCKETS), state)
+    return ApprovalState(approval, None, state)
+
+
 @dataclass(frozen=True, kw_only=True)
 class ExperimentChange:
     """What a change does to one experiment: shares of its units kept, switched, left and entered, and why."""
@@ -175,15 +274,29 @@ class ExperimentChange:
     causes: tuple[str, ...] = ()
     unknown: tuple[str, ...] = ()  # causes whose share cannot be counted from buckets
     moves: tuple[tuple[str, str, Fraction], ...] = ()  # (old arm, new arm, share of old units) for switches
-    verdict: str = "ok"  # "blocked", "accepted", "warn" or "ok"
-    reason: str | None = None
-    finding: Problem | None = None
+    verdict: str = "ok"  # "blocked", "accepted", "ramp", "warn" or "ok"
+    approval: ApprovalState | None = None
+    rollout_before: RolloutShare | None = None
+    rollout_after: RolloutShare | None = None
+    changed_lines: tuple[ChangedLine, ...] = ()
+    findings: tuple[Problem, ...] = ()
 
     @property
     def changed(self) -> bool:
         return self.presence != "both" or bool(self.causes or self.unknown)
 
+    @property
+    def reason(self) -> str | None:
+        """The approval's reason, as the new version writes it."""
+        return self.approval.why if self.approval else None
+
     def to_dict(self) -> dict[str, Any]:
+        shown = self.rollout_after or self.rollout_before
+        rollout = None if shown is None else {
+            "arm": shown.arm,
+            "old": self.rollout_before.to_dict() if self.rollout_before else None,
+            "new": self.rollout_after.to_dict() if self.rollout_after else None,
+        }
         return {
             "layer": self.layer,
             "experiment": self.experiment,
@@ -203,7 +316,18 @@ class ExperimentChange:
             "moves": [{"from": a, "to": b, "share": float(s)} for a, b, s in self.moves],
             "verdict": self.verdict,
             "reassign_ok": self.reason,
+            "approval": self.approval.to_dict() if self.approval else None,
+            "rollout": rollout,
+            "changed_lines": [place.to_dict() for place in self.changed_lines],
         }
+
+
+def finding_record(finding: Problem) -> dict[str, Any]:
+    """A finding of `diff` as its JSON output writes it (with related places when it has them)."""
+    if isinstance(finding, DiffFinding):
+        return finding.to_dict()
+    return {"rule": finding.rule, "severity": finding.severity, "file": finding.file, "line": finding.line,
+            "column": finding.column, "path": finding.path, "message": finding.message, "related": []}
 
 
 @dataclass(frozen=True)
@@ -214,7 +338,7 @@ class ConfigDiff:
 
     @property
     def findings(self) -> list[Problem]:
-        return [c.finding for c in self.changes if c.finding is not None]
+        return [finding for change in self.changes for finding in change.findings]
 
     @property
     def blocked(self) -> int:
@@ -223,7 +347,8 @@ class ConfigDiff:
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON output of `sortition diff --format json`, as Python values."""
-        return {"experiments": [c.to_dict() for c in self.changes], "blocked": self.blocked}
+        return {"experiments": [c.to_dict() for c in self.changes], "blocked": self.blocked,
+                "findings": [finding_record(f) for f in self.findings]}
 
 
 def _range_cause(old: Placement, new: Placement) -> str | None:
@@ -280,6 +405,112 @@ def causes(old_layer: Layer, old_exp: Experiment, old: Placement,
             [cause for changed, cause in uncounted if changed])
 
 
+def _arm_lines(old_exp: Experiment, new_exp: Experiment) -> list[tuple[tuple, str]]:
+    """(path inside the experiment, what changed) for each arm added, re-weighted, moved in order or removed."""
+    old_arms = {arm.name: (index, arm) for index, arm in enumerate(old_exp.arms)}
+    kept_order = [arm.name for arm in old_exp.arms if arm.name in {a.name for a in new_exp.arms}]
+    new_order = [arm.name for arm in new_exp.arms if arm.name in old_arms]
+    lines: list[tuple[tuple, str]] = []
+    for ai, arm in enumerate(new_exp.arms):
+        if arm.name not in old_arms:
+            lines.append((("arms", ai, "name"), f"arm {arm.name!r} added"))
+            continue
+        before = old_arms[arm.name][1]
+        if before.weight != arm.weight:
+            lines.append((("arms", ai, "weight"), f"weight of {arm.name!r}: {before.weight:g} → {arm.weight:g}"))
+        if kept_order.index(arm.name) != new_order.index(arm.name):
+            lines.append((("arms", ai, "name"), f"arm {arm.name!r} moved from place {kept_order.index(arm.name) + 1} "
+                                                 f"to {new_order.index(arm.name) + 1}"))
+    gone = [name for name in old_arms if name not in {a.name for a in new_exp.arms}]
+    if gone:
+        lines.append((("arms",), f"arm(s) {', '.join(map(repr, gone))} removed"))
+    return lines
+
+
+def _range_lines(old_exp: Experiment, new_exp: Experiment) -> list[tuple[tuple, str]]:
+    before = set(old_exp.ranges)
+    lines: list[tuple[tuple, str]] = [(("buckets", i), f"range {text.strip()} added")
+                                      for i, (text, r) in enumerate(zip(new_exp.buckets, new_exp.ranges))
+                                      if r not in before]
+    gone = [text.strip() for text, r in zip(old_exp.buckets, old_exp.ranges) if r not in set(new_exp.ranges)]
+    if gone:
+        lines.append((("buckets",), f"range(s) {', '.join(gone)} removed"))
+    return lines
+
+
+def changed_lines(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[int, int]) -> tuple[ChangedLine, ...]:
+    """The lines of the new version where this experiment's change was written, in the order of the file."""
+    old_layer, new_layer = old.layers[old_at[0]], new.layers[new_at[0]]
+    old_exp, new_exp = old_layer.experiments[old_at[1]], new_layer.experiments[new_at[1]]
+    li = new_at[0]
+    at = ("layers", li, "experiments", new_at[1])
+    counted: list[tuple[tuple, str]] = []
+    if old_layer.name != new_layer.name:
+        counted.append((at + ("name",), f"moved from layer {old_layer.name!r}"))
+    if old_layer.unit != new_layer.unit:
+        counted.append((("layers", li, "unit"), f"unit type {old_layer.unit!r} → {new_layer.unit!r}"))
+    if old_layer.effective_salt != new_layer.effective_salt:
+        counted.append((("layers", li, "salt" if new_layer.salt is not None else "name"),
+                        f"layer salt {old_layer.effective_salt!r} → {new_layer.effective_salt!r}"))
+    if old_exp.salt != new_exp.salt:  # a default salt that follows the layer's is placed on the layer's line
+        counted.append((at + ("salt" if new_exp.salt is not None else "name",),
+                        f"salt {experiment_salt(old_layer, old_exp)!r} → {experiment_salt(new_layer, new_exp)!r}"))
+    counted += [(at + path, what) for path, what in _arm_lines(old_exp, new_exp) + _range_lines(old_exp, new_exp)]
+    counted += _holdout_lines(old, new, old_layer.unit, new_layer.unit, at)
+    if old_exp.status != new_exp.status:
+        counted.append((at + ("status",), f"status {old_exp.status} → {new_exp.status}"))
+    other: list[tuple[tuple, str]] = []
+    if old_exp.overrides != new_exp.overrides:
+        other.append((at + ("overrides",), "overrides changed"))
+    for key in sorted(set(old_exp.eligible) | set(new_exp.eligible)):
+        if old_exp.eligible.get(key) != new_exp.eligible.get(key):
+            other.append((at + (("eligible", key) if key in new_exp.eligible else ("eligible",)),
+                          f"eligibility on {key!r} changed"))
+    for key in ("start", "end"):
+        if getattr(old_exp, key) != getattr(new_exp, key):
+            other.append((at + (key,), f"{key} date changed"))
+    if old_exp.rollout != new_exp.rollout:
+        other.append((at + ("rollout" if new_exp.rollout else "name",), f"rollout {old_exp.rollout} → {new_exp.rollout}"))
+    if new_exp.reassign_ok is not None and old_exp.reassign_ok != new_exp.reassign_ok:
+        other.append((at + ("reassign_ok",), "approval added or changed"))
+    places = [_place(new, path, what, True) for path, what in counted]
+    places += [_place(new, path, what, False) for path, what in other]
+    by_line: dict[tuple[str, int], ChangedLine] = {}
+    for place in places:  # two changes on one line (a flow list of ranges) are one place
+        same = by_line.get((place.file, place.line))
+        by_line[(place.file, place.line)] = place if same is None else dataclasses.replace(
+            same, what=f"{same.what}; {place.what}", counted=same.counted or place.counted)
+    return tuple(sorted(by_line.values(), key=lambda p: (p.file, p.line, p.column)))
+
+
+def _holdout_lines(old: Config, new: Config, old_unit: str, new_unit: str, at: tuple) -> list[tuple[tuple, str]]:
+    before = next((h for h in old.holdouts if h.unit == old_unit), None)
+    index, after = next(((i, h) for i, h in enumerate(new.holdouts) if h.unit == new_unit), (None, None))
+    if before == after:
+        return []
+    if index is None or after is None:
+        return [(at + ("name",), "holdout removed")]
+    lines = []
+    if before is None or before.salt != after.salt:
+        lines.append((("holdout", index, "salt"), f"holdout salt → {after.salt!r}"))
+    if before is None or before.percent != after.percent:
+        lines.append((("holdout", index, "percent"), f"holdout percent → {after.percent:g}"))
+    return lines
+
+
+def _place(config: Config, path: tuple, what: str, counted: bool) -> ChangedLine:
+    document, local = config.origin(path)
+    line, column = document.locate(local)
+    return ChangedLine(document.file, line, column, format_path(local), what, counted, tuple(local))
+
+
+def _finding(config: Config, rule: str, places: tuple[ChangedLine, ...], fallback: tuple, message: str,
+             severity: str) -> DiffFinding:
+    """A finding on the first of `places` (or on `fallback` when there is none), all of them related."""
+    first = places[0] if places else _place(config, fallback, "", False)
+    return DiffFinding(rule, severity, first.file, first.line, first.column, first.path, message, first.loc, places)
+
+
 def _index(config: Config | None) -> dict[tuple[str, str], tuple[int, int]]:
     if config is None:
         return {}
@@ -334,25 +565,27 @@ def _added(new: Config, li: int, ei: int) -> ExperimentChange:
     exp = layer.experiments[ei]
     share = traffic(placement(new, layer, exp))
     return ExperimentChange(layer=layer.name, experiment=exp.name, status=exp.status, old_status=None,
-                            presence="added", new_traffic=share, causes=("added",))
+                            presence="added", new_traffic=share, causes=("added",),
+                            approval=approval_state(None, exp), rollout_after=rollout_share(new, layer, exp))
 
 
 def _removed(old: Config, li: int, ei: int, new: Config) -> ExperimentChange:
     layer = old.layers[li]
     exp = layer.experiments[ei]
     share = traffic(placement(old, layer, exp))
-    finding = None
+    findings: tuple[Problem, ...] = ()
     verdict = "ok"
     if exp.status == "running":
         verdict = "warn"
         new_layer = next((i for i, other in enumerate(new.layers) if other.name == layer.name), None)
         message = (f"running experiment {layer.name}/{exp.name} is removed: its units return to the default "
                    "experience with no record of when it stopped; set status: done first and remove it later")
-        finding = (new.problem("running-removed", ("layers", new_layer, "experiments"), message, "warning")
-                   if new_layer is not None else old.problem("running-removed", ("layers", li, "name"), message, "warning"))
+        findings = (new.problem("running-removed", ("layers", new_layer, "experiments"), message, "warning")
+                    if new_layer is not None else old.problem("running-removed", ("layers", li, "name"), message, "warning"),)
     return ExperimentChange(layer=layer.name, experiment=exp.name, status=exp.status, old_status=exp.status,
                             presence="removed", kept=ZERO, switched=ZERO, left=Fraction(1), entered=ZERO,
-                            old_traffic=share, causes=("removed",), verdict=verdict, finding=finding)
+                            old_traffic=share, causes=("removed",), verdict=verdict, findings=findings,
+                            rollout_before=rollout_share(old, layer, exp))
 
 
 def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[int, int]) -> ExperimentChange:
@@ -375,34 +608,87 @@ def _compared(old: Config, old_at: tuple[int, int], new: Config, new_at: tuple[i
         left = (shares.old - shares.both) / shares.old
         entered = (shares.new - shares.both) / shares.old
         moves = tuple((a, b, share / shares.old) for (a, b), share in sorted(shares.moves.items()) if a != b)
+    places = changed_lines(old, old_at, new, new_at)
+    approval = approval_state(old_exp, new_exp)
     at = ("layers", new_at[0], "experiments", new_at[1])
-    verdict, finding = _verdict(new, at, old_exp, new_exp, switched, left, found, unknown)
+    motion = Motion(switched, left, moves, found, unknown)
+    verdict, finding = _verdict(new, at, new_exp, old_exp.status in CONTINUING, motion, approval, places)
+    findings = tuple(f for f in (finding, _stale(new, at, new_exp, approval)) if f is not None)
     return ExperimentChange(layer=new_layer.name, experiment=new_exp.name, status=new_exp.status,
                             old_status=old_exp.status, presence="both", kept=kept, switched=switched, left=left,
                             entered=entered, old_traffic=old_traffic, new_traffic=new_traffic, exact=exact,
                             causes=tuple(found), unknown=tuple(unknown), moves=moves, verdict=verdict,
-                            reason=new_exp.reassign_ok, finding=finding)
+                            approval=approval, rollout_before=rollout_share(old, old_layer, old_exp),
+                            rollout_after=rollout_share(new, new_layer, new_exp), changed_lines=places,
+                            findings=findings)
 
 
-def _verdict(new: Config, at: tuple, old_exp: Experiment, new_exp: Experiment, switched: Fraction, left: Fraction,
-             found: list[str], unknown: list[str]) -> tuple[str, Problem | None]:
-    if new_exp.status != "running" or old_exp.status not in CONTINUING:
-        return "ok", None
-    what = ", ".join(found + unknown) or "no named cause"
-    if switched > 0 or left > 0:
+@dataclass(frozen=True)
+class Motion:
+    """How a change moves one experiment's old units: shares that switch arm or leave, by arm pair, and why."""
+
+    switched: Fraction
+    left: Fraction
+    moves: tuple[tuple[str, str, Fraction], ...]
+    causes: list[str]
+    unknown: list[str]
+
+    @property
+    def moved(self) -> Fraction:
+        return self.switched + self.left
+
+    def outside(self, arm: str | None) -> Fraction:
+        """The share that moves anywhere but into `arm` (all of it when no arm is given)."""
+        into = sum((share for _, to, share in self.moves if arm is not None and to == arm), ZERO)
+        return self.moved - into
+
+    def text(self) -> str:
         parts = [f"{percent_text(share)} of its units would {verb}"
-                 for share, verb in ((switched, "switch arm"), (left, "leave")) if share > 0]
-        moved = f"{' and '.join(parts)} ({what})"
-        if new_exp.reassign_ok:
-            return "accepted", new.problem("reassign-accepted", at + ("reassign_ok",),
-                f"{new_exp.name!r}: {moved}; accepted: {new_exp.reassign_ok}", "note")
-        return "blocked", new.problem("reassign-running", at,
-            f"running experiment {new_exp.name!r}: {moved}; its results would mix two designs. Undo the change, "
-            "or set reassign_ok: \"<why>\" on the experiment if this is intended", "error")
-    if unknown and not new_exp.reassign_ok:
-        return "warn", new.problem("share-unknown", at + ("eligible" if "eligibility change" in unknown else "start",),
-            f"running experiment {new_exp.name!r}: {', '.join(unknown)} may add or drop units, how many depends on "
-            "unit attributes and days, not buckets; set reassign_ok: \"<why>\" once you have checked", "warning")
-    return "ok", None
+                 for share, verb in ((self.switched, "switch arm"), (self.left, "leave")) if share > 0]
+        return f"{' and '.join(parts)} ({', '.join(self.causes + self.unknown) or 'no named cause'})"
 
 
+def _verdict(new: Config, at: tuple, exp: Experiment, was_live: bool, motion: Motion,
+             approval: ApprovalState | None, places: tuple[ChangedLine, ...]) -> tuple[str, Problem | None]:
+    """The verdict on a running experiment whose units may move, and the finding that says so."""
+    if exp.status != "running" or not was_live:
+        return "ok", None
+    fresh = approval is not None and approval.fresh
+    released = exp.rollout if any(arm.name == exp.rollout for arm in exp.arms) else None
+    outside = motion.outside(released)
+    if outside > 0:
+        counted_first = tuple(p for p in places if p.counted) + tuple(p for p in places if not p.counted)
+        if approval is not None and fresh and (approval.moves_up_to is None or motion.moved <= approval.moves_up_to):
+            return "accepted", _finding(new, "reassign-accepted", counted_first, at + ("reassign_ok",),
+                f"{exp.name!r}: {motion.text()}; accepted: {approval.why}", "note")
+        out_of_arm = (f", {percent_text(outside)} of them not into the released arm {released!r}"
+                      if released is not None else "")
+        return "blocked", _finding(new, "reassign-running", counted_first, at,
+            f"running experiment {exp.name!r}: {motion.text()}{out_of_arm}; its results would mix two designs. "
+            f"{_unblock(approval, motion)}", "error")
+    if motion.unknown and not fresh:
+        return "warn", _finding(new, "share-unknown", tuple(p for p in places if not p.counted),
+            at + ("eligible" if "eligibility change" in motion.unknown else "start",),
+            f"running experiment {exp.name!r}: {', '.join(motion.unknown)} may add or drop units, how many "
+            "depends on unit attributes and days, not buckets; add or change reassign_ok: \"<why>\" in this change "
+            "once you have checked", "warning")
+    return ("ramp" if motion.moved > 0 else "ok"), None
+
+
+def _unblock(approval: ApprovalState | None, motion: Motion) -> str:
+    """What lets such a change through, given the approval the experiment already carries."""
+    if approval is not None and approval.state == "stale":
+        return ("Its reassign_ok is carried over unchanged from the old version and approves nothing now: undo the "
+                "change, or write a new reassign_ok that says why this change may move units")
+    if approval is not None and approval.moves_up_to is not None:
+        return (f"Its reassign_ok lets at most {percent_text(approval.moves_up_to)} move, and this change moves "
+                f"{percent_text(motion.moved)}: undo the change, or raise moves_up_to if this is intended")
+    return "Undo the change, or set reassign_ok: \"<why>\" on the experiment in this change if it is intended"
+
+
+def _stale(new: Config, at: tuple, exp: Experiment, approval: ApprovalState | None) -> Problem | None:
+    if approval is None or approval.fresh:
+        return None
+    return _finding(new, "reassign-stale", (), at + ("reassign_ok",),
+        f"{exp.name!r}: reassign_ok ({approval.why!r}) is carried over unchanged from the old version, so it approves "
+        "nothing in this change (an approval covers only the change that adds or changes it); remove it", "warning")

@@ -14,6 +14,7 @@ from typing import Any, Mapping
 from bucketing import BUCKETS, Config, Layer, did_you_mean, hundredths, load_config
 
 from .._errors import AuditError
+from ._diff import RolloutShare, rollout_share
 
 OWNER_MARKS = string.ascii_uppercase + string.ascii_lowercase + string.digits
 
@@ -24,6 +25,7 @@ class Owner:
     status: str
     ranges: tuple[tuple[int, int], ...]
     mark: str
+    rollout: RolloutShare | None = None  # for a staged rollout, how far its released arm has gone
 
     @property
     def buckets(self) -> int:
@@ -45,7 +47,7 @@ class LayerLayout:
         return sorted(self.free, key=lambda r: (-(r[1] - r[0] + 1), r[0]))[:count]
 
 
-def layer_layout(layer: Layer) -> LayerLayout:
+def layer_layout(config: Config, layer: Layer) -> LayerLayout:
     owners = []
     taken = [False] * BUCKETS
     for index, exp in enumerate(layer.experiments):
@@ -55,7 +57,7 @@ def layer_layout(layer: Layer) -> LayerLayout:
                 ranges.append((low, high))
                 taken[low:high + 1] = [True] * (high - low + 1)
         mark = OWNER_MARKS[index] if index < len(OWNER_MARKS) else "*"
-        owners.append(Owner(exp.name, exp.status, tuple(sorted(ranges)), mark))
+        owners.append(Owner(exp.name, exp.status, tuple(sorted(ranges)), mark, rollout_share(config, layer, exp)))
     return LayerLayout(layer.name, layer.unit, tuple(owners), tuple(_runs(taken)))
 
 
@@ -123,7 +125,8 @@ class Layout:
             "used_share": (BUCKETS - layer.free_buckets) / BUCKETS,
             "free_share": layer.free_buckets / BUCKETS,
             "owners": [{"experiment": o.experiment, "status": o.status, "mark": o.mark,
-                        "ranges": [range_text(r) for r in o.ranges], "share": o.buckets / BUCKETS}
+                        "ranges": [range_text(r) for r in o.ranges], "share": o.buckets / BUCKETS,
+                        "rollout": o.rollout.to_dict() if o.rollout else None}
                        for o in layer.owners],
             "free": [{"range": range_text(r), "share": (r[1] - r[0] + 1) / BUCKETS} for r in layer.free],
             "proposal": proposal(layer.name),
@@ -143,7 +146,7 @@ def layout_of(config: Config | str | Path, layer: str | None = None, want: float
         if wanted is None or not 0 < wanted <= BUCKETS:
             raise AuditError(f"a new experiment takes a percent above 0 and at most 100 with at most two "
                              f"decimals, found {want}")
-    layers = tuple(layer_layout(item) for item in chosen)
+    layers = tuple(layer_layout(loaded, item) for item in chosen)
     proposals: dict[str, Ranges | None] = {}
     if wanted:
         for item in layers:

@@ -136,6 +136,12 @@ def lint(config: Config, options: CheckOptions) -> list[Problem]:
 
 
 def _arms(config: Config, at: tuple, exp: Experiment) -> Iterator[Problem]:
+    names = [arm.name for arm in exp.arms]
+    if exp.rollout in names[1:]:
+        yield config.problem("rollout-not-first", at + ("rollout",),
+            f"{exp.name!r} releases arm {exp.rollout!r}, which is not its first arm: raising its weight moves "
+            f"units between the arms before it ({', '.join(names[:names.index(exp.rollout)])}) too, so each ramp "
+            "needs an approval; put it first", "warning")
     everywhere = {name for arm in exp.arms for name in arm.params}
     for ai, arm in enumerate(exp.arms):
         if arm.weight == 0:

@@ -37,10 +37,16 @@ _LINT = {
     "waiver-unknown-rule": "a waiver names a rule id that does not exist",
     "waiver-not-allowed": "a waiver names an error of the SDK, which refuses the config whatever the waiver says",
     "waiver-unused": "a waiver turns off a rule that finds nothing in its experiment",
+    "rollout-not-first": "a staged rollout's released arm is not first, so raising its weight moves units between "
+                         "the other arms",
 }
 _DIFF = {
-    "reassign-running": "a running experiment would move units to another arm or drop them",
-    "reassign-accepted": "a running experiment moves units, and the new config says why (`reassign_ok`)",
+    "reassign-running": "a running experiment would move units to another arm or drop them, and this change does "
+                        "not approve it (a rollout's units moving into its released arm need no approval)",
+    "reassign-accepted": "a running experiment moves units, and an approval (`reassign_ok`) that this change adds "
+                         "or changes says why",
+    "reassign-stale": "an approval (`reassign_ok`) is carried over unchanged from the old version, so it approves "
+                      "nothing",
     "share-unknown": "a running experiment's eligibility or dates change; how many units move cannot be counted",
     "running-removed": "a running experiment is removed from the config",
 }

@@ -6,7 +6,7 @@ only when an HTML report is drawn.
 
 from ._json import as_json
 from ._sarif import SARIF_SCHEMA_URI, SARIF_VERSION, artifact_uri, sarif_json, sarif_log
-from ._text import check_text, diff_text, finding_line, layout_text, p_text, rules_text, srm_text
+from ._text import check_text, diff_text, finding_line, layout_text, p_text, rollout_text, rules_text, srm_text, terminal_safe
 
 __all__ = ["as_json", "sarif_log", "sarif_json", "artifact_uri", "SARIF_VERSION", "SARIF_SCHEMA_URI", "check_text", "diff_text",
-           "finding_line", "layout_text", "p_text", "rules_text", "srm_text"]
+           "finding_line", "layout_text", "p_text", "rollout_text", "rules_text", "srm_text", "terminal_safe"]

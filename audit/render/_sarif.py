@@ -3,7 +3,11 @@
 Any command that produces findings can use it: each finding needs `rule`,
 `severity` ("error", "warning" or "note"), `file`, `line`, `column` and
 `message`; the rule registry maps rule ids to one-line descriptions, so that
-review tools can show what a rule is for.
+review tools can show what a rule is for. A finding may also have `related`
+places (each with `file`, `line`, `column` and `what`), such as every line a
+config change touched; they become the result's related locations. A run
+that failed still writes a valid log: no results it could not compute, and
+the failure as a notification of an unsuccessful invocation.
 """
 
 from __future__ import annotations
@@ -20,17 +24,20 @@ SARIF_SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/s
 LEVELS = {"error": "error", "warning": "warning", "note": "note"}
 
 
-class LocatedFinding(Protocol):
-    @property
-    def rule(self) -> str: ...
-    @property
-    def severity(self) -> str: ...
+class Place(Protocol):
     @property
     def file(self) -> str: ...
     @property
     def line(self) -> int: ...
     @property
     def column(self) -> int: ...
+
+
+class LocatedFinding(Place, Protocol):
+    @property
+    def rule(self) -> str: ...
+    @property
+    def severity(self) -> str: ...
     @property
     def message(self) -> str: ...
 
@@ -47,9 +54,20 @@ def artifact_uri(file: str, root: Path | None = None) -> str:
     return quote(path.as_posix())
 
 
-def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
-              tool: str = "sortition", version: str | None = None, root: Path | None = None) -> dict[str, Any]:
-    """One SARIF run: the rule registry as the driver's rules, each finding as a result."""
+def _physical(place: Place, root: Path | None) -> dict[str, Any]:
+    return {"physicalLocation": {
+        "artifactLocation": {"uri": artifact_uri(place.file, root)},
+        "region": {"startLine": max(1, place.line), "startColumn": max(1, place.column)},
+    }}
+
+
+def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *, tool: str = "sortition",
+              version: str | None = None, root: Path | None = None, failure: str | None = None) -> dict[str, Any]:
+    """One SARIF run: the rule registry as the driver's rules, each finding as a result.
+
+    `failure` says why the run could not finish; the log then records an
+    unsuccessful invocation with that message.
+    """
     rule_ids = list(rules)
     index = {rule: i for i, rule in enumerate(rule_ids)}
     results = []
@@ -58,16 +76,18 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
             "ruleId": finding.rule,
             "level": LEVELS.get(finding.severity, "warning"),
             "message": {"text": finding.message},
-            "locations": [{
-                "physicalLocation": {
-                    "artifactLocation": {"uri": artifact_uri(finding.file, root)},
-                    "region": {"startLine": max(1, finding.line), "startColumn": max(1, finding.column)},
-                },
-            }],
+            "locations": [_physical(finding, root)],
         }
+        related = getattr(finding, "related", ())  # optional: findings of most commands have no related places
+        if related:
+            result["relatedLocations"] = [{"id": i, **_physical(place, root), "message": {"text": place.what}}
+                                          for i, place in enumerate(related)]
         if finding.rule in index:
             result["ruleIndex"] = index[finding.rule]
         results.append(result)
+    invocation: dict[str, Any] = {"executionSuccessful": failure is None}
+    if failure is not None:
+        invocation["toolExecutionNotifications"] = [{"level": "error", "message": {"text": failure}}]
     driver = {
         "name": tool,
         "version": version or __version__,
@@ -76,10 +96,11 @@ def sarif_log(findings: Iterable[LocatedFinding], rules: Mapping[str, str], *,
     return {
         "$schema": SARIF_SCHEMA_URI,
         "version": SARIF_VERSION,
-        "runs": [{"tool": {"driver": driver}, "columnKind": "unicodeCodePoints", "results": results}],
+        "runs": [{"tool": {"driver": driver}, "invocations": [invocation], "columnKind": "unicodeCodePoints",
+                  "results": results}],
     }
 
 
-def sarif_json(findings: Iterable[LocatedFinding], rules: Mapping[str, str]) -> str:
+def sarif_json(findings: Iterable[LocatedFinding], rules: Mapping[str, str], failure: str | None = None) -> str:
     """The SARIF log as indented JSON, for stdout."""
-    return json.dumps(sarif_log(findings, rules), indent=2, ensure_ascii=False)
+    return json.dumps(sarif_log(findings, rules, failure=failure), indent=2, ensure_ascii=False)

@@ -1,4 +1,9 @@
-"""Text for the terminal: the SRM audit (mismatches first), check findings, diff impact, the bucket layout."""
+"""Text for the terminal: the SRM audit (mismatches first), check findings, diff impact, the bucket layout.
+
+Strings in these texts come from configs, file names and logs, which anyone
+can write; `terminal_safe` shows their control characters as escapes, so
+that none can move the cursor, retitle the window or clear the screen.
+"""
 
 from __future__ import annotations
 
@@ -6,12 +11,25 @@ from typing import TYPE_CHECKING, Iterator
 
 from bucketing import BUCKETS, Problem
 
-from ..checks import RULES, CheckResult, ConfigDiff, ExperimentChange, LayerLayout, Layout, percent_text, range_text
+from ..checks import (RULES, CheckResult, ConfigDiff, ExperimentChange, LayerLayout, Layout, RolloutShare, percent_text,
+                      range_text)
 
 if TYPE_CHECKING:  # `audit.srm` loads SciPy: the config commands start without it
     from ..srm import AuditResult, ExperimentResult
 
 SEGMENT_ROWS = 8
+
+
+def _escaped(char: str) -> str:
+    code = ord(char)
+    return f"\\x{code:02x}" if code <= 0xFF else f"\\u{code:04x}" if code <= 0xFFFF else f"\\U{code:08x}"
+
+
+def terminal_safe(text: str) -> str:
+    """`text` with every character that is not printable (but the line breaks) written as an escape such as \\x1b."""
+    if text.isprintable():
+        return text
+    return "\n".join("".join(c if c.isprintable() else _escaped(c) for c in line) for line in text.split("\n"))
 
 
 def p_text(value: float) -> str:
@@ -138,7 +156,8 @@ def srm_text(result: AuditResult) -> str:
 
 def finding_line(finding: Problem) -> str:
     field_path = f" ({finding.path})" if finding.path else ""
-    return f"{finding.file}:{finding.line}:{finding.column}: {finding.severity} {finding.rule}{field_path}: {finding.message}"
+    return terminal_safe(f"{finding.file}:{finding.line}:{finding.column}: {finding.severity} {finding.rule}"
+                         f"{field_path}: {finding.message}")
 
 
 def check_text(result: CheckResult) -> str:
@@ -147,7 +166,7 @@ def check_text(result: CheckResult) -> str:
     if result.waived:
         summary += f"; {len(result.waived)} waived"
     lines.append(summary)
-    return "\n".join(lines)
+    return terminal_safe("\n".join(lines))
 
 
 def rules_text() -> str:
@@ -160,38 +179,67 @@ def rules_text() -> str:
     return "\n".join(lines)
 
 
+VERDICT_MARKS = {"blocked": "BLOCKED", "accepted": "accepted", "ramp": "ramp", "warn": "check", "ok": ""}
+APPROVAL_NOTES = {"new": "added by this change", "changed": "changed by this change",
+                  "stale": "STALE: carried over unchanged, approves nothing"}
+
+
+def rollout_text(share: RolloutShare) -> str:
+    """"'new-engine' at 20.00 % of the experiment, 19.60 % of learner units"."""
+    return (f"{share.arm!r} at {percent_text(share.of_experiment)} of the experiment, "
+            f"{percent_text(share.of_units)} of {share.unit} units")
+
+
+def _rollout_row(c: ExperimentChange) -> str | None:
+    before, after = c.rollout_before, c.rollout_after
+    if after is None:
+        return None
+    if before is None or before == after:
+        return f"rollout: {rollout_text(after)}"
+    return (f"rollout of {after.arm!r}: {percent_text(before.of_experiment)} → {percent_text(after.of_experiment)} "
+            f"of the experiment, {percent_text(before.of_units)} → {percent_text(after.of_units)} of {after.unit} units")
+
+
 def _diff_rows(changes: tuple[ExperimentChange, ...]) -> Iterator[str]:
+    pad = f"{'':<8}   "
     for c in changes:
         name = f"{c.layer}/{c.experiment}"
         status = c.status if c.old_status in (None, c.status) else f"{c.old_status}→{c.status}"
-        mark = {"blocked": "BLOCKED", "accepted": "accepted", "warn": "check", "ok": ""}[c.verdict]
+        mark = VERDICT_MARKS[c.verdict]
+        rollout = _rollout_row(c)
         if c.presence == "added":
             yield f"{mark:<8} {name}  {status}  new, takes {percent_text(c.new_traffic)} of {c.status} traffic"
+            yield from ([pad + rollout] if rollout else [])
             continue
         if c.presence == "removed":
             yield f"{mark:<8} {name}  {status}  removed: all its units leave"
             continue
-        if not c.changed:
+        if not c.changed and not (c.approval and not c.approval.fresh):
             continue
         entered = "-" if c.entered is None else "+" + percent_text(c.entered)
         yield (f"{mark:<8} {name}  {status}  kept {percent_text(c.kept)}  switched {percent_text(c.switched)}  "
                f"left {percent_text(c.left)}  entered {entered}")
         basis = "exact bucket counts" if c.exact else "expected shares: a salt changed, so old and new buckets are independent hashes"
-        yield f"{'':<8}   cause: {'; '.join(c.causes) or '-'}  [{basis}]"
+        yield f"{pad}cause: {'; '.join(c.causes) or '-'}  [{basis}]"
         if c.unknown:
-            yield f"{'':<8}   share unknown: {', '.join(c.unknown)} (depends on unit attributes and days)"
+            yield f"{pad}share unknown: {', '.join(c.unknown)} (depends on unit attributes and days)"
         for a, b, share in c.moves:
-            yield f"{'':<8}   {a} → {b}: {percent_text(share)}"
-        if c.reason:
-            yield f"{'':<8}   reassign_ok: {c.reason}"
+            yield f"{pad}{a} → {b}: {percent_text(share)}"
+        if rollout:
+            yield pad + rollout
+        if c.approval:
+            limit = "" if c.approval.moves_up_to is None else f", moves up to {percent_text(c.approval.moves_up_to)}"
+            yield f"{pad}reassign_ok ({APPROVAL_NOTES[c.approval.state]}{limit}): {c.approval.why}"
+        for place in c.changed_lines:
+            yield f"{pad}changed {place.file}:{place.line}: {place.what}"
 
 
 def diff_text(diff: ConfigDiff) -> str:
     unchanged = sum(1 for c in diff.changes if not c.changed)
     lines = list(_diff_rows(diff.changes))
     lines.append(f"{len(diff.changes)} experiment(s): {unchanged} unchanged, {diff.blocked} blocked")
-    lines += [finding_line(f) for f in diff.findings if f.severity == "error"]
-    return "\n".join(lines)
+    lines += [finding_line(f) for f in diff.findings if f.severity in ("error", "warning")]
+    return terminal_safe("\n".join(lines))
 
 
 def _bucket_percent(buckets: int) -> str:
@@ -233,6 +281,8 @@ def layout_text(result: Layout, width: int = 100, top: int = 3) -> str:
         for owner in layout.owners:
             ranges = ", ".join(range_text(r) for r in owner.ranges)
             lines.append(f"  {owner.mark}  {owner.experiment:<24} {owner.status:<8} {_bucket_percent(owner.buckets):>8}  {ranges}")
+            if owner.rollout is not None:
+                lines.append(f"     rollout: {rollout_text(owner.rollout)}")
         widest = layout.largest_free(top)
         if widest:
             lines.append("  widest free: " + ", ".join(f"{range_text(r)} ({_bucket_percent(r[1] - r[0] + 1)})" for r in widest))
@@ -247,4 +297,4 @@ def layout_text(result: Layout, width: int = 100, top: int = 3) -> str:
                 lines.append(f"  for {_bucket_percent(want)}: not enough free buckets; set finished experiments "
                              "to done and remove them to free theirs")
         lines.append("")
-    return "\n".join(lines).rstrip("\n")
+    return terminal_safe("\n".join(lines).rstrip("\n"))

@@ -210,7 +210,9 @@ def _sort_census(rows: Sequence[CensusRow], designs: Sequence[Design]) -> _Censu
         before = unknown.get(key)
         unknown[key] = UnknownRecords(row.experiment or "", arm, row.layer,
                                       row.records + (before.records if before else 0), reason)
-    census.unknown = sorted(unknown.values(), key=lambda u: -u.records)
+    # Ties in records are ordered by name, so the report does not depend on the engine's row order.
+    census.unknown = sorted(unknown.values(), key=lambda u: (-u.records, u.reason, u.layer or "",
+                                                             u.experiment, u.arm or ""))
     return census
 
 
