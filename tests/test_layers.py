@@ -18,6 +18,7 @@ MAY_IMPORT = {
 }
 COMPUTE = ("checks", "srm")
 DUCKDB_ENGINE = {"_sql", "_scan", "_malformed", "_duckdb"}  # audit/srm modules of the DuckDB counting engine
+OTHER_ENGINES = {"_spark"}  # engines that read by the DuckDB engine's rules (field names, messages, line finding)
 CLI_LIBRARIES = ("typer", "click")
 # Tests of the SDK's internals that may import its private modules (each names what it takes and why there).
 SDK_INTERNAL_TESTS = {
@@ -78,10 +79,13 @@ def test_imports_inside_audit_point_one_way():
 def test_only_the_duckdb_engine_touches_duckdb():
     # Results, statistics, diagnosis and renderers see small tables: they load without any counting engine.
     outside = [(str(path.relative_to(ROOT)), name) for path in (ROOT / "audit").rglob("*.py")
-               if not (path.parent.name == "srm" and path.stem in DUCKDB_ENGINE)
+               if not (path.parent.name == "srm" and path.stem in DUCKDB_ENGINE | OTHER_ENGINES)
                for name in _imports(path)
                if name.split(".")[0] == "duckdb" or name.split(".")[:3] in [["audit", "srm", m] for m in DUCKDB_ENGINE]]
     assert outside == []
+    engines = [(stem, name) for stem in OTHER_ENGINES for name in _imports(ROOT / "audit" / "srm" / f"{stem}.py")
+               if name.split(".")[0] == "duckdb" or name == "audit.srm._duckdb"]
+    assert engines == [], "another engine shares the reading rules, never DuckDB itself"
 
 
 def test_the_checker_sees_a_wrong_import(tmp_path):

@@ -8,13 +8,13 @@ import tempfile
 import time
 from enum import Enum
 from pathlib import Path
-from typing import TYPE_CHECKING, Optional
+from typing import TYPE_CHECKING, Any, Optional
 
 import typer
 
 from ..render import as_json, srm_text
 from ._exit import fail, guarded, srm_exit
-from ._options import column_map, expectation, iso_day, segment_terms
+from ._options import column_map, expectation, iso_day, key_value_pairs, segment_terms
 
 if TYPE_CHECKING:  # the audit loads SciPy (and its engine DuckDB): imported when `srm` runs, not at start-up
     from ..srm import AuditResult
@@ -77,8 +77,9 @@ def register(app: typer.Typer) -> None:
         "--format html --out srm.html   (exit 0: no mismatch, 1: mismatch, or malformed records with --strict, 2: unreadable input)",
     )
     def srm(
-        logs: list[str] = typer.Argument(..., help="Log files, globs or directories (.jsonl, .csv, .tsv, .parquet, "
-                                                   "plain or .gz); '-' reads JSON Lines from stdin."),
+        logs: list[str] = typer.Argument(None, help="Log files, globs or directories (.jsonl, .csv, .tsv, .parquet, "
+                                                    "plain or .gz); '-' reads JSON Lines from stdin. With --engine "
+                                                    "spark, also s3a:// or hdfs:// URIs."),
         config: Optional[Path] = typer.Option(None, "--config", help="Config file or directory: expected shares, "
                                                                      "date windows, and the arm replay."),
         config_versions: Optional[Path] = typer.Option(None, "--config-versions", help="Directory of past config "
@@ -107,6 +108,12 @@ def register(app: typer.Typer) -> None:
         verdict: Verdict = typer.Option(Verdict.fixed, "--verdict", help="What the verdict and the exit code rest "
                                         "on: 'fixed' (fixed-horizon tests; a one-off audit) or 'anytime' "
                                         "(anytime-valid tests; a job that re-runs every day on growing logs)."),
+        spark_conf: list[str] = typer.Option([], "--spark-conf", help="KEY=VALUE for a new Spark session "
+                                             "(repeatable), e.g. --spark-conf spark.master=yarn."),
+        table: Optional[str] = typer.Option(None, "--table", help="A table of the Spark catalog (db.name) instead "
+                                            "of log files; needs --engine spark."),
+        table_filter: list[str] = typer.Option([], "--table-filter", help="SQL condition on --table, e.g. on its "
+                                               "partitions: \"day BETWEEN '2026-11-03' AND '2026-11-16'\" (repeatable)."),
     ) -> None:
         """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why.
 
@@ -129,13 +136,25 @@ def register(app: typer.Typer) -> None:
             expected = expectation(expect)
             if config is None and expected is None:
                 fail("give a config (--config) or an expected split (--expect 50,50)")
+            if (table is not None or spark_conf or table_filter) and engine != "spark":
+                fail("--table, --table-filter and --spark-conf need --engine spark")
+            if table is None and not logs:
+                fail("give log files, globs or directories (or --table with --engine spark)")
+            if table_filter and table is None:
+                fail("--table-filter filters --table; give the table too")
+            counting: Any = engine
+            if engine == "spark":
+                from ..srm import SparkEngine, SparkTable
+
+                counting = SparkEngine(key_value_pairs(spark_conf, "--spark-conf", "KEY=VALUE"))
             with tempfile.TemporaryDirectory(prefix="sortition-srm-") as scratch:
-                sources = [_stdin_to_file(scratch) if s == "-" else s for s in logs]
+                sources: Any = SparkTable(table, tuple(table_filter)) if table is not None else \
+                    [_stdin_to_file(scratch) if s == "-" else s for s in logs]
                 result = audit_logs(
                     sources, config=config, expect=expected, segments=terms, auto_segments=automatic,
                     columns=column_map(column), threshold=cutoff, config_versions=config_versions,
                     replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units,
-                    log_format=log_format, engine=engine, since=iso_day(since, "--since"),
+                    log_format=log_format, engine=counting, since=iso_day(since, "--since"),
                     until=iso_day(until, "--until"), verdict=verdict.value,
                     progress=None if quiet else _StderrProgress())
             report = _report(result, fmt)

@@ -1,9 +1,10 @@
 """The SRM audit: exposure records in, per experiment a test of its split, where it breaks, and why.
 
 Layers inside, one direction: `_files`/`_scan`/`_sql`/`_malformed` read
-(DuckDB), `_engine` is the counting-engine interface and `_duckdb` its
-default implementation, `_stats`/`_exact`/`_onset`/`_sequential`/`_per_unit`/`_segments`/`_replay`/`_diagnosis`
-compute on small tables, `_results` holds the frozen results, `_audit` runs it all.
+(DuckDB), `_engine` is the counting-engine interface, `_duckdb` its
+default implementation and `_spark` the Apache Spark one,
+`_stats`/`_exact`/`_onset`/`_sequential`/`_per_unit`/`_segments`/`_replay`/`_diagnosis` compute
+on small tables, `_results` holds the frozen results, `_audit` runs it all.
 Nothing here renders or chooses an exit code.
 """
 
@@ -12,6 +13,7 @@ from ._designs import Design, Expectation, designs_from_config, designs_from_exp
 from ._diagnosis import CAUSES, diagnose
 from ._engine import ENGINES, CensusRow, CountingEngine, ReplayUnit, UnitSummary, UnitTables, engine_named
 from ._files import LOG_FORMATS, LogFile, resolve_files
+from ._spark import SparkEngine, SparkTable, spark_session
 from ._results import (
     ArmResult, AuditResult, Cause, DayResult, ExperimentResult, Localisation, Malformed, MalformedExample,
     SegmentResult, UnknownRecords,
@@ -32,6 +34,7 @@ __all__ = [
     "Design", "Expectation", "designs_from_config", "designs_from_expectation",
     "CAUSES", "diagnose",
     "CountingEngine", "UnitTables", "CensusRow", "UnitSummary", "ReplayUnit", "ENGINES", "engine_named",
+    "SparkEngine", "SparkTable", "spark_session",
     "LogFile", "LOG_FORMATS", "resolve_files",
     "DEFAULT_THRESHOLD", "ArmGap", "SegmentShift", "arm_gaps", "holm_adjust", "leave_out", "cumulative_tests",
     "first_crossing", "share_interval", "proportion_test", "expected_shares", "mixture_shares",

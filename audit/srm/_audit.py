@@ -54,7 +54,8 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
 
     - `source`: a path, glob or directory of logs (JSON Lines, CSV, TSV, Parquet; .gz), a list of them,
       or an in-memory table with the exposure record's columns (a pandas DataFrame, a pyarrow Table,
-      a DuckDB relation).
+      a DuckDB relation; with `engine="spark"`, a Spark DataFrame, a `SparkTable` of the catalog, or
+      s3a:// and hdfs:// URIs).
     - `config` (a `Config` or its path) gives each experiment's expected split, dates and the arm replay;
       `expect` gives one expected split instead: weights in arm-name order (`[50, 50]`) or by arm
       (`{"control": 50, "short": 50}`).
@@ -363,9 +364,10 @@ def _segment_counts(splits: _Splits, plan: _Plan) -> list[tuple[tuple[str, ...],
 def _with_replay(tables: UnitTables, plan: _Plan, index: int, design: Design, result: ExperimentResult,
                  segments: list[SegmentResult]) -> ExperimentResult:
     """Each (sampled) unit's arm recomputed with the SDK and compared with the logged one."""
-    units = tables.replay_sample(index, plan.replay_units)
     fallback = plan.config or next(iter(plan.replay_configs.values()))
-    summary, mismatched, notes = replay(units, design, tables.attributes, plan.replay_configs, fallback)
+    arms = tables.replay_arms(index, plan.replay_units, design, plan.replay_configs, fallback)
+    summary, mismatched, notes = replay(arms, design, plan.replay_configs, fallback)
+    units = [unit for unit, _ in arms]
     plan.notes += notes
     replayed = []
     for segment in segments:

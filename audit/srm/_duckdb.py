@@ -11,6 +11,8 @@ from __future__ import annotations
 
 from typing import Any, Mapping, Sequence
 
+from bucketing import Config
+
 from . import _sql
 from ._designs import Design
 from ._engine import (
@@ -18,6 +20,7 @@ from ._engine import (
 )
 from ._files import resolve_files
 from ._malformed import malformed_records
+from ._replay import sdk_arms
 from ._results import Malformed
 from ._scan import LogScan
 from ._sql import FieldNames
@@ -112,14 +115,16 @@ class DuckDBUnitTables:
             histogram.setdefault(records, [0] * self.arms[experiment])[arm] = units
         return histogram
 
-    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
+    def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
+                    fallback: Config) -> list[tuple[ReplayUnit, str | None]]:
         columns = "".join(f", {self.names.attribute_column(a)}" for a in self.attributes)
-        # The sample is the units with the smallest hash of their id: the same on every run, whatever the threads.
-        sample = f"ORDER BY hash(unit), unit LIMIT {int(limit)}" if limit else ""
+        # The sample is the units with the smallest MD5 of their id: the same on every run and on every engine.
         rows = self.scan.query(f"""
             SELECT unit, arm, CAST(first_ts AS DATE), config, unit_type{columns}
-            FROM unit_rows WHERE {_sql.tested_units(experiment)} {sample}""", "replaying")
-        return [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in rows]
+            FROM unit_rows WHERE {_sql.tested_units(experiment)} ORDER BY md5(unit), unit
+            {f"LIMIT {int(limit)}" if limit else ""}""", "replaying")
+        units = [ReplayUnit(row[0], row[1], row[2], row[3], row[4], tuple(row[5:])) for row in rows]
+        return list(zip(units, sdk_arms(units, design, self.attributes, configs, fallback)))
 
     def close(self) -> None:
         self.scan.close()

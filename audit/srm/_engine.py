@@ -15,6 +15,8 @@ import importlib
 from datetime import date
 from typing import Any, Callable, Mapping, NamedTuple, Optional, Protocol, Sequence
 
+from bucketing import Config
+
 from .._errors import AuditError
 from ._designs import Design
 from ._results import Malformed
@@ -105,8 +107,11 @@ class UnitTables(Protocol):
         """Tested units per number of records they logged (in the experiment's known arms, inside its dates) and arm."""
         ...
 
-    def replay_sample(self, experiment: int, limit: int) -> list[ReplayUnit]:
-        """Up to `limit` tested units (all when 0), the same ones on every run."""
+    def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
+                    fallback: Config) -> list[tuple[ReplayUnit, str | None]]:
+        """Up to `limit` tested units (all when 0), the same ones on every engine and run: smallest MD5 of the id
+        first. Each comes with the arm the SDK gives it under the config version its record names (`fallback`
+        when that version is not among `configs`), None when the SDK gives it none of the design's arms."""
         ...
 
     def close(self) -> None:
@@ -131,7 +136,8 @@ class CountingEngine(Protocol):
         ...
 
 
-ENGINES = {"duckdb": "audit.srm._duckdb:DuckDBEngine"}  # name -> "module:class", imported when asked for
+# name -> "module:class", imported when asked for (pyspark only with the spark extra)
+ENGINES = {"duckdb": "audit.srm._duckdb:DuckDBEngine", "spark": "audit.srm._spark:SparkEngine"}
 
 
 def engine_named(name: str | CountingEngine) -> CountingEngine:

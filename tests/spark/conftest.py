@@ -15,7 +15,7 @@ import pytest
 
 
 @pytest.fixture(scope="session")
-def spark():
+def spark(tmp_path_factory):
     if shutil.which("java") is None:
         pytest.fail("the Spark tests need Java 17 or newer: run `make test`, which installs it "
                     "(bash scripts/system-tools.sh java)", pytrace=False)
@@ -28,6 +28,8 @@ def spark():
                .config("spark.sql.shuffle.partitions", "2")
                .config("spark.default.parallelism", "2")
                .config("spark.driver.memory", "1g")
+               .config("spark.ui.showConsoleProgress", "false")
+               .config("spark.sql.warehouse.dir", str(tmp_path_factory.mktemp("spark-warehouse")))
                .getOrCreate())
     session.sparkContext.setLogLevel("ERROR")
     yield session
