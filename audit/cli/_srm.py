@@ -14,10 +14,15 @@ import typer
 
 from ..render import as_json, srm_text
 from ._exit import fail, guarded, srm_exit
-from ._options import column_map, expectation, key_value_pairs, segment_terms
+from ._options import column_map, expectation, iso_day, key_value_pairs, segment_terms
 
 if TYPE_CHECKING:  # the audit loads SciPy (and its engine DuckDB): imported when `srm` runs, not at start-up
     from ..srm import AuditResult
+
+
+class Verdict(str, Enum):
+    fixed = "fixed"
+    anytime = "anytime"
 
 
 class SrmFormat(str, Enum):
@@ -99,6 +104,12 @@ def register(app: typer.Typer) -> None:
                                                  "files whose name does not say."),
         quiet: bool = typer.Option(False, "--quiet", help="No progress on stderr."),
         engine: str = typer.Option("duckdb", "--engine", help="The engine that counts the records (default duckdb)."),
+        since: Optional[str] = typer.Option(None, "--since", help="First day of records to audit (YYYY-MM-DD, UTC); "
+                                            "each unit is taken at its first exposure from then."),
+        until: Optional[str] = typer.Option(None, "--until", help="Last day of records to audit (YYYY-MM-DD, UTC)."),
+        verdict: Verdict = typer.Option(Verdict.fixed, "--verdict", help="What the verdict and the exit code rest "
+                                        "on: 'fixed' (fixed-horizon tests; a one-off audit) or 'anytime' "
+                                        "(anytime-valid tests; a job that re-runs every day on growing logs)."),
         spark_conf: list[str] = typer.Option([], "--spark-conf", help="KEY=VALUE for a new Spark session "
                                              "(repeatable), e.g. --spark-conf spark.master=yarn."),
         table: Optional[str] = typer.Option(None, "--table", help="A table of the Spark catalog (db.name) instead "
@@ -106,7 +117,14 @@ def register(app: typer.Typer) -> None:
         table_filter: list[str] = typer.Option([], "--table-filter", help="SQL condition on --table, e.g. on its "
                                                "partitions: \"day BETWEEN '2026-11-03' AND '2026-11-16'\" (repeatable)."),
     ) -> None:
-        """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why."""
+        """Sample-ratio-mismatch audit of exposure logs: is each split as designed, where not, since when, why.
+
+        MISMATCH: the overall test, or a segment's Holm-adjusted test, is below the threshold.
+        With --verdict anytime: their anytime-valid versions instead, safe for a job that re-runs daily.
+        Onset day: the most likely day the split broke (a change point in the daily new units).
+        Crossing day: the first day the cumulative test fell below the threshold (later; both for mismatches only).
+        Exit 0: no mismatch; 1: a mismatch (or, with --strict, a malformed record); 2: unreadable input.
+        """
 
         def run() -> int:
             from ..srm import DEFAULT_REPLAY_UNITS, DEFAULT_THRESHOLD, LOG_FORMATS, audit_logs
@@ -138,7 +156,9 @@ def register(app: typer.Typer) -> None:
                     sources, config=config, expect=expected, segments=terms, auto_segments=automatic,
                     columns=column_map(column), threshold=cutoff, config_versions=config_versions,
                     replay_units=DEFAULT_REPLAY_UNITS if replay_units is None else replay_units,
-                    log_format=log_format, engine=counting, progress=None if quiet else _StderrProgress())
+                    log_format=log_format, engine=counting, since=iso_day(since, "--since"),
+                    until=iso_day(until, "--until"), verdict=verdict.value,
+                    progress=None if quiet else _StderrProgress())
             report = _report(result, fmt)
             if out is not None:
                 out.write_text(report, encoding="utf-8")

@@ -44,18 +44,59 @@ def _table(header: list[str], rows: list[list[str]], indent: str = "    ") -> li
     return [aligned(header), *(aligned(r) for r in rows)]
 
 
+def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
+    """What the verdict rests on, where the split broke and since when: the same sentences in text and HTML."""
+    if not result.srm:
+        return []
+    if result.srm_scope == "segment":
+        worst = min((s for s in result.segments if s.srm), key=lambda s: s.p_adjusted)
+        tested = f"anytime-valid p = {p_text(worst.sequential_p_value)}" if worst.sequential_p_value is not None \
+            else f"p = {p_text(worst.p_value)} ({worst.test})"
+        lines = [f"the overall split looks fine (p = {p_text(result.p_value)}), but segment {worst.label} does not: "
+                 f"{tested}, {p_text(worst.p_adjusted)} after Holm over {len(result.segments)} segments"]
+    elif result.verdict == "anytime":
+        lines = [f"the overall split is off on the anytime-valid test: p = {p_text(result.sequential_p_value)} "
+                 f"< {threshold:g}"]
+    else:
+        lines = [f"the overall split is off: p = {p_text(result.p_value)} ({result.test}) < {threshold:g}"]
+    where = result.localisation
+    onset_day, interval = (where.onset_day, where.onset_interval) if where is not None and where.onset_day \
+        else (result.onset_day, result.onset_interval)
+    if onset_day is not None and interval is not None:
+        scope = f" in {where.label}" if where is not None and where.onset_day else ""
+        span = f" (likely between {interval[0].isoformat()} and {interval[1].isoformat()})" \
+            if interval[0] != interval[1] else ""
+        lines.append(f"broke{scope} on {onset_day.isoformat()}{span}: the most likely day the arm shares changed")
+    crossing = where.first_srm_day if where is not None and where.first_srm_day else result.first_srm_day
+    if crossing is not None:
+        lines.append(f"the cumulative test first crossed {threshold:g} on {crossing.isoformat()} "
+                     f"(the day the evidence sufficed, not the day it broke)")
+    return lines
+
+
+def repeats_line(result: ExperimentResult) -> str | None:
+    """Exact repeats per arm (records logged twice with the same unit, arm and time), when there are any."""
+    if not result.duplicate_records:
+        return None
+    parts = [f"{a.arm!r} {a.duplicate_records:,} ({a.duplicate_records / a.records:.1%} of its records)"
+             for a in result.arms if a.duplicate_records]
+    return "exact repeats: " + ", ".join(parts)
+
+
 def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     mark = "MISMATCH" if result.srm else "balanced"
     lines = [f"{mark}  {result.layer} / {result.experiment}   {result.units:,} units   "
-             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)}"]
+             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)} ({result.test})"]
+    repeats = repeats_line(result)
     if not result.srm:
-        return lines + [f"    note: {c.message}" for c in result.causes]
+        return lines + ([f"    {repeats}"] if repeats else []) + [f"    note: {c.message}" for c in result.causes]
+    lines += [f"    {line}" for line in verdict_lines(result, threshold)]
     rows = [[a.arm, f"{a.units:,}", f"{a.observed_share:.2%}", f"{a.expected_share:.2%}",
              f"{a.ratio:.3f}", f"{a.excess_units:+,.0f}", f"{a.records:,}", f"{a.records_per_unit:.2f}"]
             for a in result.arms]
     lines += _table(["arm", "units", "observed", "expected", "ratio", "excess", "records", "per unit"], rows)
-    if result.first_srm_day:
-        lines.append(f"    cumulative test first below {threshold:g} on {result.first_srm_day.isoformat()}")
+    if repeats:
+        lines.append(f"    {repeats}")
     if result.days:
         since = (f", first below {threshold:g} on {result.first_sequential_srm_day.isoformat()}"
                  if result.first_sequential_srm_day else f", not below {threshold:g}")

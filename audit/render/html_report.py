@@ -11,7 +11,7 @@ import math
 from html import escape
 
 from ..srm import AuditResult, ExperimentResult, share_interval
-from ._text import p_text
+from ._text import p_text, repeats_line, verdict_lines
 
 CHART_SEGMENTS = 12
 
@@ -178,12 +178,17 @@ def _segments_table(result: ExperimentResult) -> str:
 
 
 def _experiment(result: ExperimentResult, threshold: float) -> str:
-    verdict = "MISMATCH" if result.srm else "BALANCED"
-    facts = [f"{result.units:,} units", f"χ² = {result.chi2:.1f} ({result.df} df)", f"p = {p_text(result.p_value)}"]
+    verdict = ("MISMATCH IN A SEGMENT" if result.srm_scope == "segment" else "MISMATCH") if result.srm else "BALANCED"
+    facts = [f"{result.units:,} units", f"χ² = {result.chi2:.1f} ({result.df} df)",
+             f"p = {p_text(result.p_value)} ({result.test})"]
     if result.replay_checked:
         facts.append(f"arm replay: {result.replay_mismatch_share:.2%} of {result.replay_checked:,} units differ")
     if result.multi_arm_units:
         facts.append(f"{result.multi_arm_units:,} units in two arms (left out)")
+    repeats = repeats_line(result)
+    if repeats:
+        facts.append(repeats)
+    said = "".join(f"<p>{escape(line[0].upper() + line[1:])}.</p>" for line in verdict_lines(result, threshold))
     causes = ""
     if result.causes:
         causes = ('<div class="causes"><h3>What the logs say</h3><ul>'
@@ -198,7 +203,7 @@ def _experiment(result: ExperimentResult, threshold: float) -> str:
             f'<h2><span class="verdict">{verdict}</span>{escape(result.experiment)} '
             f'<small>in layer {escape(result.layer)}</small></h2>'
             f'<p class="stats">{" · ".join(escape(f) for f in facts)}</p>'
-            f'{causes}{loc}{_arms_table(result)}'
+            f'{said}{causes}{loc}{_arms_table(result)}'
             f'<div class="charts">{charts}{_day_chart(result, threshold)}</div>'
             f'{_segments_table(result)}</section>')
 

@@ -2,7 +2,8 @@
 
 Layers inside, one direction: `_files`/`_scan`/`_sql`/`_malformed` read
 (DuckDB), `_engine` is the counting-engine interface, `_duckdb` its
-default implementation and `_spark` the Apache Spark one, `_stats`/`_segments`/`_replay`/`_diagnosis` compute
+default implementation and `_spark` the Apache Spark one,
+`_stats`/`_exact`/`_onset`/`_sequential`/`_per_unit`/`_segments`/`_replay`/`_diagnosis` compute
 on small tables, `_results` holds the frozen results, `_audit` runs it all.
 Nothing here renders or chooses an exit code.
 """
@@ -17,10 +18,13 @@ from ._results import (
     ArmResult, AuditResult, Cause, DayResult, ExperimentResult, Localisation, Malformed, MalformedExample,
     SegmentResult, UnknownRecords,
 )
+from ._exact import SplitTest, SplitTests, binomial_p_values, split_test, split_tests
+from ._onset import Onset, onset
+from ._per_unit import DuplicateEvidence, RankTest, duplicate_logging_evidence, records_rank_test
+from ._sequential import sequential_p_values
 from ._stats import (
-    DEFAULT_THRESHOLD, ArmGap, FitResult, SegmentShift, arm_gaps, chi_square_fit, chi_square_p_value,
-    cumulative_fits, expected_shares, first_crossing, holm_adjust, leave_out, proportion_test, sequential_p_values,
-    share_interval,
+    DEFAULT_THRESHOLD, ArmGap, SegmentShift, arm_gaps, cumulative_tests, expected_shares, first_crossing, holm_adjust,
+    leave_out, mixture_shares, proportion_test, share_interval,
 )
 
 __all__ = [
@@ -32,7 +36,8 @@ __all__ = [
     "CountingEngine", "UnitTables", "CensusRow", "UnitSummary", "ReplayUnit", "ENGINES", "engine_named",
     "SparkEngine", "SparkTable", "spark_session",
     "LogFile", "LOG_FORMATS", "resolve_files",
-    "DEFAULT_THRESHOLD", "FitResult", "ArmGap", "SegmentShift", "chi_square_fit", "chi_square_p_value", "arm_gaps",
-    "holm_adjust", "leave_out", "cumulative_fits", "first_crossing", "share_interval", "proportion_test",
-    "sequential_p_values", "expected_shares",
+    "DEFAULT_THRESHOLD", "ArmGap", "SegmentShift", "arm_gaps", "holm_adjust", "leave_out", "cumulative_tests",
+    "first_crossing", "share_interval", "proportion_test", "expected_shares", "mixture_shares",
+    "SplitTest", "SplitTests", "split_test", "split_tests", "binomial_p_values", "Onset", "onset",
+    "sequential_p_values", "RankTest", "DuplicateEvidence", "records_rank_test", "duplicate_logging_evidence",
 ]

@@ -14,7 +14,10 @@ from __future__ import annotations
 from collections import defaultdict
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from datetime import date
 from typing import Any, Iterable, Mapping, Sequence, Union
+
+import numpy as np
 
 from bucketing import Config, load_config
 
@@ -22,12 +25,19 @@ from .._errors import AuditError, LogError
 from . import _stats
 from ._designs import Design, Expectation, designs_from_config, designs_from_logs
 from ._diagnosis import diagnose
-from ._engine import CensusRow, CountingEngine, Progress, UnitTables, engine_named
+from ._engine import (
+    CONFIG_VERSION, FIRST_DAY, CensusRow, CountingEngine, Progress, Segment, UnitTables, Window, engine_named,
+)
+from ._exact import split_test
+from ._per_unit import duplicate_logging_evidence
 from ._replay import replay, replayable, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
-from ._segments import day_results, localise, test_segments, without_worst
+from ._segments import arm_totals, localise, mismatch_start, test_segments, timeline, without_worst
 
 DEFAULT_REPLAY_UNITS = 50_000
+FIXED, ANYTIME = "fixed", "anytime"  # what the verdict rests on: the fixed-horizon tests or the anytime-valid ones
+VERDICTS = (FIXED, ANYTIME)
+UNNAMED_EXPERIMENT = "(unnamed)"  # with an expected split, the experiment of logs that name none
 EXAMPLES = 5
 AUTO_MAX_VALUES = 50  # an automatic segment attribute with more values than this is left out, with a note
 
@@ -40,6 +50,7 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
                columns: Mapping[str, str] | None = None, threshold: float = _stats.DEFAULT_THRESHOLD,
                config_versions: str | Path | None = None, replay_units: int = DEFAULT_REPLAY_UNITS,
                log_format: str | None = None, engine: str | CountingEngine = "duckdb",
+               since: date | None = None, until: date | None = None, verdict: str = FIXED,
                progress: Progress | None = None) -> AuditResult:
     """Audit exposure records for sample ratio mismatch: is each experiment's split of units as designed?
 
@@ -53,12 +64,21 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
     - `segments`: column names to test segment by segment; a tuple of names tests their combinations.
       `auto_segments` adds every other column of the logs.
     - `columns`: record field -> log column, for logs that use other names.
-    - `config_versions`: a directory of past config versions; each unit is replayed under its record's.
+    - `config_versions`: a directory of past config versions; each unit is judged against the version its
+      first record names (a ramp is a mixture of designs) and replayed under it.
+    - `since`, `until`: audit only the records of these days (both included); each unit is taken at its
+      first exposure within them.
+    - `verdict`: "fixed" (default) bases the verdict on the fixed-horizon tests, right for a one-off audit;
+      "anytime" on the anytime-valid tests, right for a job that re-runs every day on the growing logs.
 
     Returns a frozen `AuditResult`; `result.to_dict()` is the JSON of `sortition srm --format json`.
     """
     if not 0 < threshold < 1:
         raise AuditError(f"the threshold must be between 0 and 1, found {threshold}")
+    if verdict not in VERDICTS:
+        raise AuditError(f"the verdict is based on one of {', '.join(VERDICTS)}, found {verdict!r}")
+    if since is not None and until is not None and since > until:
+        raise AuditError(f"the window starts ({since}) after it ends ({until})")
     loaded = config if config is None or isinstance(config, Config) else load_config(Path(config))
     if loaded is None and expect is None:
         raise AuditError("give a config or an expected split")
@@ -76,7 +96,7 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
 
     def read(names: list[str]) -> UnitTables:
         return counting.read(paths, columns, names, keep_versions=bool(replay_configs), log_format=log_format,
-                             progress=progress)
+                             progress=progress, defaults={"experiment": UNNAMED_EXPERIMENT} if expect else None)
 
     tables = read(attributes)
     try:
@@ -85,7 +105,8 @@ def audit_logs(source: Source, *, config: Config | str | Path | None = None, exp
             automatic = [(name,) for name in tables.other_columns() if (name,) not in terms]
             tables.close()
             tables = read(attributes + [name for (name,) in automatic])
-        plan = _Plan(loaded, expect, terms + automatic, set(automatic), threshold, replay_configs, replay_units)
+        plan = _Plan(loaded, expect, terms + automatic, set(automatic), threshold, replay_configs, replay_units,
+                     (since, until), verdict)
         return _audit(tables, plan)
     finally:
         tables.close()
@@ -116,6 +137,8 @@ class _Plan:
     threshold: float
     replay_configs: dict[str, Config]
     replay_units: int
+    window: Window = (None, None)
+    verdict: str = "fixed"
     crowded: set[tuple[str, ...]] = field(default_factory=set)
     notes: list[str] = field(default_factory=list)
 
@@ -136,7 +159,7 @@ class _Census:
 
 def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
     designs = designs_from_config(plan.config) if plan.config is not None and plan.expect is None else None
-    rows = tables.census(designs or [])
+    rows = tables.census(designs or [], plan.window)
     plan.notes += tables.notes  # after the census, which notes what it found in the records (implausible dates)
     if designs is None:
         assert plan.expect is not None
@@ -214,39 +237,107 @@ def _near_miss_notes(unknown: Sequence[UnknownRecords], designs: Sequence[Design
     return notes
 
 
+class _Splits:
+    """An experiment's units per arm, or per design version and arm when its weights were ramped (`Splits`).
+
+    With a ramp, row 0 of `shares` is the design of the config audited against (for units whose record
+    names no version among the ramp's), then one row per config version.
+    """
+
+    def __init__(self, tables: UnitTables, experiment: int, design: Design,
+                 versions: Mapping[str, tuple[float, ...]]) -> None:
+        self.tables = tables
+        self.experiment = experiment
+        self.rows = {version: row + 1 for row, version in enumerate(versions)}
+        self.shares = np.asarray([design.shares, *versions.values()] if versions else design.shares)
+
+    def _grouped(self, keys: Sequence[str], within: Segment | None = None,
+                 without: Segment | None = None) -> dict[tuple, np.ndarray]:
+        if not self.rows:
+            return {key: np.asarray(c) for key, c in
+                    self.tables.grouped_units(self.experiment, keys, within, without).items()}
+        folded: dict[tuple, np.ndarray] = {}
+        for key, counts in self.tables.grouped_units(self.experiment, (*keys, CONFIG_VERSION), within,
+                                                     without).items():
+            split = folded.setdefault(key[:-1], np.zeros(self.shares.shape, dtype=np.int64))
+            split[self.rows.get(key[-1], 0)] += counts
+        return folded
+
+    def split(self, within: Segment | None = None, without: Segment | None = None) -> np.ndarray:
+        return self._grouped((), within, without).get((), np.zeros(self.shares.shape, dtype=np.int64))
+
+    def daily(self, within: Segment | None = None) -> dict[date, np.ndarray]:
+        return {day: counts for (day,), counts in sorted(self._grouped((FIRST_DAY,), within).items())}
+
+    def by_value(self, names: Sequence[str], within: Segment | None = None) -> dict[tuple[str, ...], np.ndarray]:
+        return self._grouped(tuple(names), within)
+
+
+def _version_shares(design: Design, plan: _Plan) -> dict[str, tuple[float, ...]]:
+    """Each config version's shares of the design's arms (0 for an arm it lacks), when versions differ.
+
+    Empty when the audit runs on an expected split, or every version gives the design's shares.
+    """
+    if plan.expect is not None:
+        return {}
+    found = {}
+    for version, config in plan.replay_configs.items():
+        match = next((d for d in designs_from_config(config)
+                      if (d.layer, d.experiment) == (design.layer, design.experiment)), None)
+        if match is not None:
+            by_arm = dict(zip(match.arms, match.shares))
+            found[version] = tuple(by_arm.get(arm, 0.0) for arm in design.arms)
+    return found if set(found.values()) - {design.shares} else {}
+
+
 def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, outside_records: int,
                 logged: list[list[int]]) -> ExperimentResult:
     """One experiment's test; `logged` gives, per arm, its records and its repeated records."""
-    counts = tables.arm_units(index)
+    splits = _Splits(tables, index, design, _version_shares(design, plan))
+    overall = splits.split()
+    counts = list(arm_totals(overall))
     summary = tables.unit_summary(index, EXAMPLES)
-    fit = _stats.chi_square_fit(counts, design.shares)
+    test = split_test(overall, splits.shares)
     total = sum(counts)
+    shares = _stats.mixture_shares(overall, splits.shares)
     arms = []
-    for name, gap, (records, repeats) in zip(design.arms, _stats.arm_gaps(counts, design.shares), logged):
+    for name, gap, (records, repeats) in zip(design.arms, _stats.arm_gaps(counts, shares), logged):
         low, high = _stats.share_interval(gap.observed, total)
         arms.append(ArmResult(name, gap.observed, gap.expected_share, gap.observed_share, gap.expected,
                               gap.excess, gap.ratio, low, high, records, repeats))
+    histogram = tables.records_per_unit(index) if total else {}
+    duplicates = duplicate_logging_evidence(
+        list(histogram), np.array(list(histogram.values()), dtype=np.int64).T.reshape(len(design.arms), -1),
+        [a.records for a in arms], [a.duplicate_records for a in arms], plan.threshold)
     result = ExperimentResult(
-        layer=design.layer, experiment=design.experiment, units=total, arms=tuple(arms), chi2=fit.statistic,
-        df=fit.df, p_value=fit.p_value, srm=fit.p_value < plan.threshold, records=sum(a.records for a in arms),
+        layer=design.layer, experiment=design.experiment, units=total, arms=tuple(arms), chi2=test.statistic,
+        df=test.df, p_value=test.p_value, srm=test.p_value < plan.threshold, records=sum(a.records for a in arms),
         duplicate_records=sum(a.duplicate_records for a in arms), multi_arm_units=summary.multi_arm,
         multi_arm_examples=tuple({"unit": unit, "arms": [design.arms[low], design.arms[high]]}
                                  for unit, low, high in summary.multi_arm_examples),
         forced_units=summary.forced, outside_window_records=outside_records,
-        records_p_value=_stats.chi_square_fit([a.records for a in arms], design.shares).p_value,
+        records_p_value=duplicates.rank_test.p_value, test=test.test, mc_error=test.mc_error,
+        closed_arm_units=test.closed_units,
+        duplicate_arm=design.arms[duplicates.arm] if duplicates.arm is not None else None,
+        duplicate_basis=duplicates.basis,
     )
     if total == 0:
         return result
-    days = day_results(design, tables.day_units(index))
-    crossing = _stats.first_crossing([d.cumulative_p for d in days], plan.threshold)
-    sequential = _stats.first_crossing([d.sequential_p for d in days], plan.threshold)
-    segments = test_segments(design, counts, _segment_counts(tables, plan, index), plan.threshold)
+    anytime = plan.verdict == ANYTIME
+    segments = test_segments(splits, overall, _segment_counts(splits, plan), plan.threshold, anytime)
+    dated = timeline(splits, plan.threshold)
+    overall_off = dated.days[-1].sequential_p < plan.threshold if anytime else result.srm
+    scope = "overall" if overall_off else "segment" if any(s.srm for s in segments) else None
+    sequential = _stats.first_crossing([d.sequential_p for d in dated.days], plan.threshold)
+    start = mismatch_start(segments, scope)
     result = replace(
-        result, days=tuple(days), first_srm_day=days[crossing].day if crossing is not None else None,
-        sequential_p_value=days[-1].sequential_p if days else 1.0,
-        first_sequential_srm_day=days[sequential].day if sequential is not None else None,
-        without_worst=without_worst(design, counts, segments, plan.threshold),
-        localisation=localise(tables, index, design, segments, _names(plan), plan.threshold) if result.srm else None)
+        result, srm=scope is not None, srm_scope=scope, verdict=plan.verdict, days=tuple(dated.days),
+        first_srm_day=dated.first_crossing if scope else None,
+        onset_day=dated.onset_day if scope else None, onset_interval=dated.onset_interval if scope else None,
+        sequential_p_value=dated.days[-1].sequential_p if dated.days else 1.0,
+        first_sequential_srm_day=dated.days[sequential].day if sequential is not None else None,
+        without_worst=without_worst(splits, overall, segments, plan.threshold),
+        localisation=localise(splits, start, _names(plan), plan.threshold) if start is not None else None)
     if plan.replay_configs:
         result = _with_replay(tables, plan, index, design, result, segments)
     else:
@@ -258,11 +349,11 @@ def _names(plan: _Plan) -> list[str]:
     return list(dict.fromkeys(name for term in plan.tested_terms() for name in term))
 
 
-def _segment_counts(tables: UnitTables, plan: _Plan, index: int) -> list[tuple[tuple[str, ...], dict]]:
-    """Arm counts per value of each segment term; an automatic term with too many values is dropped, with a note."""
+def _segment_counts(splits: _Splits, plan: _Plan) -> list[tuple[tuple[str, ...], dict]]:
+    """Splits per value of each segment term; an automatic term with too many values is dropped, with a note."""
     grouped = []
     for term in plan.tested_terms():
-        by_value = tables.segment_units(index, term)
+        by_value = splits.by_value(term)
         if term in plan.automatic and len(by_value) > AUTO_MAX_VALUES:
             plan.crowded.add(term)
             plan.notes.append(f"automatic segments: column {term[0]!r} has more than {AUTO_MAX_VALUES} values, "

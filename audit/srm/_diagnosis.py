@@ -10,11 +10,10 @@ from __future__ import annotations
 from typing import Callable
 
 from . import _stats
-from ._results import Cause, ExperimentResult, SegmentResult
+from ._results import Cause, ExperimentResult, SegmentResult, segment_label
 
 ARM_MISMATCH_NOTABLE = 0.01  # replayed units whose logged arm differs from the config: above 1 % is a cause
 ARM_MISMATCH_P = 0.0005  # a segment's replay mismatch stands out from the rest's below this p-value
-RECORDS_PER_UNIT_GAP = 1.05  # an arm logging 5 % more records per unit than another logs some twice
 TWO_ARM_SHARE = 0.001  # units in two arms worth naming: from one in a thousand
 
 CauseFunction = Callable[[ExperimentResult, float, tuple[Cause, ...]], "Cause | None"]
@@ -59,7 +58,10 @@ def localised_shortfall(result: ExperimentResult, threshold: float, earlier: tup
         return None
     gaps = _stats.arm_gaps(loc.arm_units, [a.expected_share for a in result.arms])
     short_arm, gap = min(enumerate(gaps), key=lambda item: item[1].excess)
-    since = f" since {loc.first_srm_day.isoformat()}" if loc.first_srm_day else ""
+    since = ""
+    if loc.onset_day is not None and loc.onset_interval is not None:
+        low, high = (d.isoformat() for d in loc.onset_interval)
+        since = f" since {loc.onset_day.isoformat()}" + (f" (between {low} and {high})" if low != high else "")
     rest = "the rest of the experiment is balanced" if not loc.srm_rest else "the rest still shows a mismatch"
     arm = result.arms[short_arm].arm
     shortfall = (f"in {loc.label}, arm {arm!r} has {-gap.excess:,.0f} units fewer than "
@@ -72,16 +74,39 @@ def localised_shortfall(result: ExperimentResult, threshold: float, earlier: tup
 
 
 def duplicate_logging(result: ExperimentResult, threshold: float, earlier: tuple[Cause, ...]) -> Cause | None:
-    """Records off while units are not: one arm logs its exposures more than once."""
-    per_unit = [a.records_per_unit for a in result.arms if a.units]
-    if not (result.records_p_value < threshold and not result.srm and per_unit
-            and max(per_unit) > RECORDS_PER_UNIT_GAP * min(per_unit)):
+    """One arm logs its exposures more than once: exact repeats, or more records per unit on a test per unit.
+
+    The evidence comes from `_per_unit`: records cluster within units, so
+    only a comparison that treats the unit as the sampling unit (a rank test
+    of records per unit) or exact repeats are evidence.
+    """
+    heavy = next((a for a in result.arms if a.arm == result.duplicate_arm), None)
+    if heavy is None:
         return None
-    heavy = max(result.arms, key=lambda a: a.records_per_unit)
+    if result.duplicate_basis == "exact_repeats":
+        return Cause("duplicate_logging",
+            f"arm {heavy.arm!r} has {heavy.duplicate_records:,} records that repeat another exactly "
+            f"({heavy.duplicate_records / heavy.records:.1%} of its records): exposures are logged more than once "
+            f"in that arm (count units, not records)")
+    lightest = min((a for a in result.arms if a.units), key=lambda a: a.records_per_unit)
     return Cause("duplicate_logging",
-        f"record counts show a mismatch while unit counts do not: arm {heavy.arm!r} logs "
-        f"{heavy.records_per_unit:.2f} records per unit against {min(per_unit):.2f}; exposures are logged more "
-        f"than once in that arm (do not count records, count units)")
+        f"arm {heavy.arm!r} logs {heavy.records_per_unit:.2f} records per unit against {lightest.records_per_unit:.2f} "
+        f"in {lightest.arm!r} (rank test of records per unit, p = {result.records_p_value:.2g}): exposures are "
+        f"logged more than once in that arm (count units, not records)")
+
+
+def closed_arm(result: ExperimentResult, threshold: float, earlier: tuple[Cause, ...]) -> Cause | None:
+    """Units in an arm of weight 0: impossible under the design, whatever the other arms show."""
+    closed = [a for a in result.arms if a.expected_share == 0 and a.units]
+    if not closed:
+        return None
+    names = ", ".join(repr(a.arm) for a in closed)
+    units = sum(a.units for a in closed)
+    where = result.localisation.by if result.localisation is not None else None
+    inside = f", most of them in {segment_label(where)}" if where else ""
+    return Cause("closed_arm",
+        f"{units:,} units ({units / result.units:.1%}) are in arm {names}, whose weight is 0{inside}: the design "
+        f"gives it no unit, so the arm is still being served (a stale config, or a forced or cached arm)", where)
 
 
 def units_in_two_arms(result: ExperimentResult, threshold: float, earlier: tuple[Cause, ...]) -> Cause | None:
@@ -109,7 +134,7 @@ def unexplained(result: ExperimentResult, threshold: float, earlier: tuple[Cause
 
 
 CAUSES: tuple[CauseFunction, ...] = (
-    arm_mismatch, localised_shortfall, duplicate_logging, units_in_two_arms, outside_window, unexplained,
+    closed_arm, arm_mismatch, localised_shortfall, duplicate_logging, units_in_two_arms, outside_window, unexplained,
 )
 
 

@@ -30,15 +30,16 @@ What any engine must do the same way (the Spark engine mirrors it):
 
 from __future__ import annotations
 
-from collections import defaultdict
-from datetime import date, datetime, timezone
+from datetime import datetime, timezone
 from typing import Any, Mapping, Sequence
 
 from bucketing import Config
 
 from . import _sql
 from ._designs import Design
-from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
+from ._engine import (
+    CONFIG_VERSION, FIRST_DAY, NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary, Window,
+)
 from ._files import MAX_LINE_BYTES, resolve_files
 from ._malformed import malformed_records
 from ._replay import sdk_arms
@@ -56,9 +57,9 @@ class DuckDBEngine:
         self.max_line_bytes = max_line_bytes
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
-             keep_versions: bool, log_format: str | None = None,
-             progress: Progress | None = None) -> DuckDBUnitTables:
-        names = FieldNames.of(columns, attributes)
+             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None,
+             defaults: Mapping[str, str] | None = None) -> DuckDBUnitTables:
+        names = FieldNames.of(columns, attributes, defaults)
         if _is_paths(source):
             scan = LogScan(resolve_files(source, log_format), names, progress=progress,
                            max_line_bytes=self.max_line_bytes)
@@ -93,11 +94,12 @@ class DuckDBUnitTables:
         for statement, parameters in _sql.design_tables(designs):
             self.scan.con.execute(statement, parameters)
 
-    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
+    def census(self, designs: Sequence[Design], window: Window = (None, None)) -> list[CensusRow]:
         self._load_designs(designs)
         plausible = _sql.plausible_days(datetime.now(timezone.utc).date())
         windows = any(d.start or d.end for d in designs)
-        self.scan.query(_sql.unit_arms(self.kept, self.scan.times_as_text, windows, plausible), "reading records")
+        self.scan.query(_sql.unit_arms(self.kept, self.scan.times_as_text, windows, plausible, window),
+                        "reading records")
         (implausible, earliest, latest), = self.scan.fetch(_sql.IMPLAUSIBLE)
         if implausible:
             self.notes.append(f"{implausible:,} records dated outside {plausible[0]} to {plausible[1]} "
@@ -119,9 +121,9 @@ class DuckDBUnitTables:
         self._load_designs(designs)
         self.scan.query(_sql.unit_rows(self.kept), "counting units")
         self.arms = [len(d.arms) for d in designs]
-        self._arm_counts: dict[int, ArmCounts] | None = None
         self._summaries: dict[int, UnitSummary] | None = None
-        self._days: dict[int, dict[date, ArmCounts]] | None = None
+        self._whole: dict[tuple[str, ...], dict[int, dict[tuple, ArmCounts]]] = {}
+        self._records: dict[int, dict[int, ArmCounts]] | None = None
 
     def _where(self, within: Segment | None, without: Segment | None) -> str:
         where = _sql.segment_where(within or {}, self.names)
@@ -129,21 +131,6 @@ class DuckDBUnitTables:
 
     # Whole-audit questions (no segment) are answered for every experiment in one query, the first time one is
     # asked: with 100,000 experiments, one query per experiment would cost more than the records.
-
-    def arm_units(self, experiment: int, within: Segment | None = None,
-                  without: Segment | None = None) -> ArmCounts:
-        if within or without:
-            counts = [0] * self.arms[experiment]
-            for arm, units in self.scan.query(f"""
-                    SELECT arm, count(*) FROM unit_rows
-                    WHERE {_sql.tested_units(experiment, self._where(within, without))} GROUP BY arm""", "counting arms"):
-                counts[arm] = units
-            return counts
-        if self._arm_counts is None:
-            self._arm_counts = {}
-            for exp, arm, units in self.scan.query(_sql.ARM_UNITS, "counting arms"):
-                self._arm_counts.setdefault(exp, [0] * self.arms[exp])[arm] = units
-        return list(self._arm_counts.get(experiment, [0] * self.arms[experiment]))
 
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         if self._summaries is None:
@@ -153,29 +140,39 @@ class DuckDBUnitTables:
                 self._summaries[exp].multi_arm_examples.append((unit, low, high))
         return self._summaries.get(experiment, UnitSummary(0, 0, []))
 
-    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
-        if within:
-            return self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(experiment, self._where(within, None))),
-                                                "counting days"))[experiment]
-        if self._days is None:
-            self._days = self._by_day(self.scan.query(_sql.day_units(_sql.tested_units(None)), "counting days"))
-        return self._days.get(experiment, {})
+    def grouped_units(self, experiment: int, keys: Sequence[str], within: Segment | None = None,
+                      without: Segment | None = None) -> dict[tuple, ArmCounts]:
+        if within or without:
+            return self._grouped(keys, _sql.tested_units(experiment, self._where(within, without))).get(experiment, {})
+        if tuple(keys) not in self._whole:
+            self._whole[tuple(keys)] = self._grouped(keys, _sql.tested_units(None))
+        return {key: list(counts) for key, counts in self._whole[tuple(keys)].get(experiment, {}).items()}
 
-    def _by_day(self, rows: list[tuple]) -> defaultdict[int, dict[date, ArmCounts]]:
-        by_day: defaultdict[int, dict[date, ArmCounts]] = defaultdict(dict)
-        for exp, day, arm, units in rows:
-            by_day[exp].setdefault(day, [0] * self.arms[exp])[arm] = units
-        return by_day
-
-    def segment_units(self, experiment: int, names: Sequence[str],
-                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
-        keys = ", ".join(f"coalesce({self.names.attribute_column(n)}, {_sql.text(NO_VALUE)})" for n in names)
-        grouped: dict[tuple[str, ...], ArmCounts] = {}
-        for row in self.scan.query(f"""
-                SELECT {keys}, arm, count(*) FROM unit_rows
-                WHERE {_sql.tested_units(experiment, self._where(within, None))} GROUP BY ALL""", "testing segments"):
-            grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
+    def _grouped(self, keys: Sequence[str], where: str) -> dict[int, dict[tuple, ArmCounts]]:
+        columns = [self._key(key) for key in keys]
+        grouped: dict[int, dict[tuple, ArmCounts]] = {}
+        for exp, *row in self.scan.query(f"""
+                SELECT {", ".join(["exp", *columns, "arm", "count(*)"])} FROM unit_rows
+                WHERE {where} GROUP BY ALL""", "counting units"):
+            by_key = grouped.setdefault(exp, {})
+            by_key.setdefault(tuple(row[:len(keys)]), [0] * self.arms[exp])[row[len(keys)]] = row[-1]
         return grouped
+
+    def _key(self, key: str) -> str:
+        if key == FIRST_DAY:
+            return "CAST(first_ts AS DATE)"
+        if key == CONFIG_VERSION:
+            return "config" if "config" in self.kept else "NULL::VARCHAR"
+        return f"coalesce({self.names.attribute_column(key)}, {_sql.text(NO_VALUE)})"
+
+    def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:
+        if self._records is None:
+            self._records = {}
+            for exp, records, arm, units in self.scan.query(f"""
+                    SELECT exp, records, arm, count(*) FROM unit_rows WHERE {_sql.tested_units(None)} GROUP BY ALL""",
+                    "counting records per unit"):
+                self._records.setdefault(exp, {}).setdefault(records, [0] * self.arms[exp])[arm] = units
+        return {records: list(counts) for records, counts in self._records.get(experiment, {}).items()}
 
     def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
                     fallback: Config) -> list[tuple[ReplayUnit, str | None]]:

@@ -2,8 +2,9 @@
 
 An engine reads the records (files, or an in-memory table it understands)
 and reduces them to one row per unit and experiment; the audit then asks it
-for small tables: counts per arm, per arm and day, per arm and segment, and
-a sample of units to replay. Only Python values cross this interface (no
+for small tables: units per arm and any grouping (day of first exposure,
+config version, segment attributes), records per unit, and a sample of
+units to replay. Only Python values cross this interface (no
 engine types), so statistics, diagnosis and rendering never know which
 engine counted. `audit/srm/_duckdb.py` is the default engine.
 """
@@ -12,7 +13,7 @@ from __future__ import annotations
 
 import importlib
 from datetime import date
-from typing import Any, Callable, Mapping, NamedTuple, Protocol, Sequence
+from typing import Any, Callable, Mapping, NamedTuple, Optional, Protocol, Sequence
 
 from bucketing import Config
 
@@ -22,6 +23,9 @@ from ._results import Malformed
 
 Progress = Callable[[str, float], None]
 NO_VALUE = "(none)"  # the segment value of units without the attribute
+FIRST_DAY = "(first day)"  # a key of `grouped_units`: the day (a date) of the unit's first exposure
+CONFIG_VERSION = "(config)"  # a key of `grouped_units`: the record's `config` at first exposure (None if absent)
+Window = tuple[Optional[date], Optional[date]]  # first and last day of records to count, both included; None: open
 Segment = Mapping[str, str]  # attribute -> value (NO_VALUE for units without the attribute)
 ArmCounts = list[int]  # units per arm, in the design's arm order
 
@@ -71,8 +75,12 @@ class UnitTables(Protocol):
         """Columns of the sources that are not fields of the exposure record (candidate segments)."""
         ...
 
-    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
-        """The one pass over the records; `designs` give the date windows (records outside are only counted)."""
+    def census(self, designs: Sequence[Design], window: Window = (None, None)) -> list[CensusRow]:
+        """The one pass over the records; `designs` give the date windows (records outside are only counted).
+
+        Usable records dated outside `window` are not read at all (as if not in the logs), so each unit
+        is taken at its first exposure within the window.
+        """
         ...
 
     def epoch_notes(self) -> list[str]:
@@ -87,21 +95,17 @@ class UnitTables(Protocol):
         """Reduce to one row per unit and experiment (index into `designs`): its arm at first exposure."""
         ...
 
-    def arm_units(self, experiment: int, within: Segment | None = None,
-                  without: Segment | None = None) -> ArmCounts:
-        """Tested units per arm, of a segment (`within`) or of everything but a segment (`without`)."""
-        ...
-
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         ...
 
-    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
-        """Tested units per day of first exposure and arm."""
+    def grouped_units(self, experiment: int, keys: Sequence[str], within: Segment | None = None,
+                      without: Segment | None = None) -> dict[tuple, ArmCounts]:
+        """Tested units per value of `keys` and arm: attribute names (NO_VALUE where absent), FIRST_DAY or
+        CONFIG_VERSION (this one kept only when `read` was asked to keep versions)."""
         ...
 
-    def segment_units(self, experiment: int, names: Sequence[str],
-                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
-        """Tested units per value of the attributes `names` (a tuple of values) and arm."""
+    def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:
+        """Tested units per number of records they logged (in the experiment's known arms, inside its dates) and arm."""
         ...
 
     def replay_arms(self, experiment: int, limit: int, design: Design, configs: Mapping[str, Config],
@@ -121,8 +125,12 @@ class CountingEngine(Protocol):
     name: str
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
-             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None) -> UnitTables:
+             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None,
+             defaults: Mapping[str, str] | None = None) -> UnitTables:
         """`source`: paths, globs and directories, or an in-memory table; `columns`: record field -> log column.
+
+        `defaults` gives a value to record fields that no source has (a log of one experiment audited
+        against an expected split needs no `experiment`).
 
         `keep_versions` keeps each unit's `config` and `unit_type` at first exposure, for the replay.
         """

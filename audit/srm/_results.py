@@ -27,6 +27,10 @@ def _day(value: date | None) -> str | None:
     return value.isoformat() if value else None
 
 
+def _interval(value: tuple[date, date] | None) -> list[str] | None:
+    return [value[0].isoformat(), value[1].isoformat()] if value else None
+
+
 def segment_label(by: Mapping[str, str]) -> str:
     return ", ".join(f"{k}={v}" for k, v in by.items())
 
@@ -103,6 +107,10 @@ class SegmentResult:
     p_without: float = 1.0  # overall test with this segment left out
     replay_checked: int = 0
     replay_mismatched: int = 0
+    test: str = "none"  # which test ran (see `audit.srm._exact`)
+    mc_error: float | None = None  # Monte Carlo only: 99 % upper bound of the p-value minus the estimate
+    closed_units: int = 0  # units in an arm the design closes (weight 0)
+    sequential_p_value: float | None = None  # anytime-valid p-value of the segment, when the verdict rests on them
 
     @property
     def label(self) -> str:
@@ -114,7 +122,9 @@ class SegmentResult:
 
     def to_dict(self, arms: tuple[str, ...]) -> dict[str, Any]:
         return {
-            "by": dict(self.by), "units": self.units, "p_value": self.p_value, "p_adjusted": self.p_adjusted,
+            "by": dict(self.by), "units": self.units, "test": self.test, "p_value": self.p_value,
+            "mc_error": self.mc_error, "p_adjusted": self.p_adjusted, "closed_arm_units": self.closed_units,
+            "sequential_p_value": self.sequential_p_value,
             "srm": self.srm, "chi2": self.chi2, "arm_units": dict(zip(arms, self.arm_units)),
             "explained": self.explained, "p_value_without": self.p_without,
             "replay_checked": self.replay_checked, "replay_mismatch_share": self.replay_mismatch_share,
@@ -144,7 +154,9 @@ class Localisation:
     p_value: float
     p_rest: float
     srm_rest: bool
-    first_srm_day: date | None
+    first_srm_day: date | None  # the first day the segment's cumulative test crossed the threshold
+    onset_day: date | None = None  # the estimated first broken day of the segment
+    onset_interval: tuple[date, date] | None = None
 
     @property
     def label(self) -> str:
@@ -153,14 +165,15 @@ class Localisation:
     def to_dict(self, arms: tuple[str, ...]) -> dict[str, Any]:
         return {"by": dict(self.by), "units": self.units, "arm_units": dict(zip(arms, self.arm_units)),
                 "p_value": self.p_value, "p_value_rest": self.p_rest, "srm_rest": self.srm_rest,
-                "first_srm_day": _day(self.first_srm_day)}
+                "first_srm_day": _day(self.first_srm_day), "onset_day": _day(self.onset_day),
+                "onset_interval": _interval(self.onset_interval)}
 
 
 @dataclass(frozen=True)
 class Cause:
     """A diagnosed reason for a mismatch (or a data problem worth a look), in words and as a tag."""
 
-    kind: str  # arm_mismatch | dropped_exposures | duplicate_logging | units_in_two_arms | outside_window | unexplained
+    kind: str  # closed_arm | arm_mismatch | dropped_exposures | duplicate_logging | units_in_two_arms | outside_window | unexplained
     message: str
     segment: Mapping[str, str] | None = None
 
@@ -206,6 +219,15 @@ class ExperimentResult:
     replay_mismatched: int = 0
     replay_examples: tuple[Mapping[str, Any], ...] = ()
     causes: tuple[Cause, ...] = ()
+    test: str = "none"  # which test ran (see `audit.srm._exact`)
+    mc_error: float | None = None  # Monte Carlo only: 99 % upper bound of the p-value minus the estimate
+    closed_arm_units: int = 0  # units in an arm the design closes (weight 0): impossible under the design
+    srm_scope: str | None = None  # "overall" or "segment" for a mismatch, else None
+    verdict: str = "fixed"  # what `srm` rests on: "fixed" (fixed-horizon tests) or "anytime" (anytime-valid ones)
+    duplicate_arm: str | None = None  # the arm that logs its exposures more than once, on valid evidence
+    duplicate_basis: str | None = None  # "exact_repeats" or "records_per_unit"
+    onset_day: date | None = None  # for a mismatch: the estimated first broken day (change point)
+    onset_interval: tuple[date, date] | None = None
 
     @property
     def replay_mismatch_share(self) -> float | None:
@@ -223,10 +245,17 @@ class ExperimentResult:
             "experiment": self.experiment,
             "units": self.units,
             "arms": [a.to_dict() for a in self.arms],
+            "test": self.test,
             "chi2": self.chi2,
             "df": self.df,
             "p_value": self.p_value,
+            "mc_error": self.mc_error,
+            "closed_arm_units": self.closed_arm_units,
             "srm": self.srm,
+            "srm_scope": self.srm_scope,
+            "verdict": self.verdict,
+            "onset_day": _day(self.onset_day),
+            "onset_interval": _interval(self.onset_interval),
             "records": self.records,
             "records_p_value": self.records_p_value,
             "multi_arm_units": self.multi_arm_units,

@@ -137,8 +137,9 @@ class LogScan:
                 self.present.update(RECORD_FIELDS)  # JSON Lines have no header: any field may be there
                 self._jsonl_paths += paths
                 self.rejects.append("rejects_jsonl")
+                absent = self._absent_from_jsonl(paths) if self.names.defaults else set()
                 selects.append(_sql.jsonl_select(paths, self.names, "rejects_jsonl", self.originals,
-                                                 self.max_line_bytes))
+                                                 self.max_line_bytes, absent))
             elif fmt == "parquet":
                 source = _sql.parquet_source(paths)
                 where = paths[0] if len(paths) == 1 else f"{len(paths)} Parquet files"
@@ -168,12 +169,17 @@ class LogScan:
         self.sources = [label]
         return _sql.table_select(TABLE_VIEW, present, self.names, label)
 
+    def _absent_from_jsonl(self, paths: list[str], sample_lines: int = 10_000) -> set[str]:
+        """Record fields with a default that none of the first `sample_lines` JSON records has."""
+        keys = {key for (key,) in self.fetch(_sql.jsonl_keys(paths, sample_lines, self.max_line_bytes))}
+        return {name for name in self.names.defaults if self.names.columns[name] not in keys}
+
     def log_columns(self, sample_lines: int = 10_000) -> list[str]:
         """Every column of the logs: CSV and Parquet files and tables say theirs in the header; JSON Lines files
         are sampled (the keys of their first `sample_lines` records)."""
         found = dict(self._columns_seen)
         if self._jsonl_paths:
-            keys = self.fetch(_sql.jsonl_keys(self._jsonl_paths, sample_lines))
+            keys = self.fetch(_sql.jsonl_keys(self._jsonl_paths, sample_lines, self.max_line_bytes))
             found.update(dict.fromkeys(sorted(key for (key,) in keys)))
         return [name for name in found if name not in READER_COLUMNS]
 
@@ -203,7 +209,7 @@ class LogScan:
     def _check_columns(self, present: Mapping[str, str], where: str) -> None:
         columns = self.names.columns
         for name in _sql.REQUIRED_FIELDS:
-            if columns[name] not in present:
+            if columns[name] not in present and name not in self.names.defaults:
                 raise MissingFieldError(f"{where}: no column {columns[name]!r} for field {name!r} "
                                         f"(columns: {', '.join(present)})", name, columns[name])
         self.present.update(n for n in RECORD_FIELDS if columns[n] in present)

@@ -1,97 +1,170 @@
-"""Segments of an experiment: each tested on its own (Holm-adjusted), and the mismatch localised.
+"""Segments and days of an experiment: each segment tested (Holm-adjusted), the mismatch localised and dated.
 
-Pure functions over the small tables a counting engine gives: counts per
-segment value and arm in, `SegmentResult`s and a `Localisation` out.
+Pure functions over the small tables a counting engine gives, reached
+through a `Splits`: the units per arm of the experiment, of a segment, of a
+day. A split is a vector of units per arm, or, when weights were ramped, a
+matrix of units per design version and arm (see `_exact`); every test here
+takes either.
 """
 
 from __future__ import annotations
 
 from datetime import date
-from typing import Mapping, Sequence
+from typing import Mapping, NamedTuple, Protocol, Sequence
+
+import numpy as np
 
 from . import _stats
-from ._designs import Design
-from ._engine import ArmCounts, UnitTables
+from ._engine import Segment
+from ._exact import split_test, split_tests
+from ._onset import onset
 from ._results import DayResult, Localisation, SegmentResult
+from ._sequential import sequential_p_values
 
 EXPLAINS_MOST = 0.5  # a segment that removes at least half of the overall chi-square carries the mismatch
 
 
-def test_segments(design: Design, counts: ArmCounts,
-                  grouped: Sequence[tuple[tuple[str, ...], Mapping[tuple[str, ...], ArmCounts]]],
-                  threshold: float) -> list[SegmentResult]:
+class Splits(Protocol):
+    """Units per arm (or per design version and arm) of an experiment, as its tests need them."""
+
+    shares: np.ndarray  # (arms,) for one design, (versions, arms) for a ramp
+
+    def split(self, within: Segment | None = None, without: Segment | None = None) -> np.ndarray:
+        ...
+
+    def daily(self, within: Segment | None = None) -> Mapping[date, np.ndarray]:
+        """Units by day of first exposure."""
+        ...
+
+    def by_value(self, names: Sequence[str], within: Segment | None = None) -> Mapping[tuple[str, ...], np.ndarray]:
+        """Units by value of the attributes `names`."""
+        ...
+
+
+def arm_totals(split: np.ndarray) -> tuple[int, ...]:
+    """Units per arm of a split, whatever the design versions."""
+    counts = np.asarray(split)
+    return tuple(int(c) for c in (counts.sum(axis=0) if counts.ndim == 2 else counts))
+
+
+def test_segments(splits: Splits, overall: np.ndarray,
+                  grouped: Sequence[tuple[tuple[str, ...], Mapping[tuple[str, ...], np.ndarray]]],
+                  threshold: float, anytime: bool = False) -> list[SegmentResult]:
     """Every segment value of every term tested, Holm-adjusted together; mismatches first, the one explaining most first.
 
-    `grouped` holds, per term (a tuple of attribute names), the arm counts of each value of the term.
+    `grouped` holds, per term (a tuple of attribute names), the split of each value of the term. With
+    `anytime`, Holm adjusts the segments' anytime-valid p-values instead (valid too: the first true
+    segment wrongly flagged needs a p-value below threshold / m at some look, which Ville's inequality
+    bounds by threshold / m per segment).
     """
-    tested = []
-    for term, by_value in grouped:
-        for values, arm_units in by_value.items():
-            fit = _stats.chi_square_fit(arm_units, design.shares)
-            shift = _stats.leave_out(counts, arm_units, design.shares)
-            tested.append((dict(zip(term, values)), arm_units, fit, shift))
-    adjusted = _stats.holm_adjust([fit.p_value for _, _, fit, _ in tested])
-    segments = [SegmentResult(by, sum(arm_units), tuple(arm_units), fit.statistic, fit.p_value, p_adjusted=p,
-                              srm=p < threshold, explained=shift.explained, p_without=shift.fit_without.p_value)
-                for (by, arm_units, fit, shift), p in zip(tested, adjusted)]
-    segments.sort(key=lambda s: (not s.srm, -s.explained if s.srm else s.p_value, s.p_value))
+    tested = [(dict(zip(term, values)), split) for term, by_value in grouped for values, split in by_value.items()]
+    if not tested:
+        return []
+    tests = split_tests([split for _, split in tested], splits.shares)
+    sequential = [_last_sequential(splits, by) for by, _ in tested] if anytime else None
+    adjusted = _stats.holm_adjust(sequential if sequential is not None else [float(p) for p in tests.p_value])
+    segments = []
+    for index, ((by, split), p) in enumerate(zip(tested, adjusted)):
+        test = tests.at(index)
+        shift = _stats.leave_out(overall, split, splits.shares)
+        arms = arm_totals(split)
+        segments.append(SegmentResult(by, sum(arms), arms, test.statistic, test.p_value, p_adjusted=p,
+                                      srm=p < threshold, explained=shift.explained,
+                                      p_without=shift.test_without.p_value, test=test.test, mc_error=test.mc_error,
+                                      closed_units=test.closed_units,
+                                      sequential_p_value=sequential[index] if sequential is not None else None))
+    segments.sort(key=lambda s: (not s.srm, -s.explained if s.srm else s.p_value, s.p_value, s.label))
     return segments
 
 
-def without_worst(design: Design, counts: ArmCounts, segments: Sequence[SegmentResult],
+def _last_sequential(splits: Splits, within: Segment) -> float:
+    """The anytime-valid p-value of a segment after its last day."""
+    daily = splits.daily(within)
+    return sequential_p_values(np.array([daily[day] for day in sorted(daily)]), splits.shares)[-1] if daily else 1.0
+
+
+def without_worst(splits: Splits, overall: np.ndarray, segments: Sequence[SegmentResult],
                   threshold: float) -> SegmentResult | None:
     """The overall test with the first (worst) segment left out."""
     if not segments:
         return None
     worst = segments[0]
-    rest = [c - s for c, s in zip(counts, worst.arm_units)]
-    fit = _stats.chi_square_fit(rest, design.shares)
-    return SegmentResult(worst.by, sum(rest), tuple(rest), fit.statistic, fit.p_value, srm=fit.p_value < threshold)
+    rest = splits.split(without=worst.by)
+    test = split_test(rest, splits.shares)
+    arms = arm_totals(rest)
+    return SegmentResult(worst.by, sum(arms), arms, test.statistic, test.p_value, srm=test.p_value < threshold,
+                         test=test.test, mc_error=test.mc_error, closed_units=test.closed_units)
 
 
-def day_results(design: Design, by_day: Mapping[date, ArmCounts]) -> list[DayResult]:
-    """Each day with new units: that day's test, the cumulative one, the anytime-valid one.
+class Timeline(NamedTuple):
+    """The days of an experiment (or segment), and when it broke."""
 
-    Days without new units are left out: they change neither cumulative test,
-    and a record dated years away must not cost a loop over the days between.
+    days: list[DayResult]
+    onset_day: date | None  # the estimated first broken day
+    onset_interval: tuple[date, date] | None
+    first_crossing: date | None  # the first day the cumulative test crossed the threshold
+
+
+def timeline(splits: Splits, threshold: float, within: Segment | None = None) -> Timeline:
+    """Each day with new units: its test, the cumulative one, the anytime-valid one.
+
+    The onset is the maximum-likelihood change point of the arm shares over
+    the days' new units (`_onset`); the crossing day is when the cumulative
+    test first fell below the threshold, which comes later.
     """
-    days = sorted(by_day)
-    daily = [list(by_day[d]) for d in days]
-    cumulative = _stats.cumulative_fits(daily, design.shares)
-    sequential = _stats.sequential_p_values(daily, design.shares)
-    return [DayResult(d, tuple(counts), _stats.chi_square_fit(counts, design.shares).p_value, fit.p_value, anytime)
-            for d, counts, fit, anytime in zip(days, daily, cumulative, sequential)]
+    by_day = splits.daily(within)
+    if not by_day:
+        return Timeline([], None, None, None)
+    # Days without new units are left out: they change no cumulative test nor the change point, and a record
+    # dated years away must not cost a row for every day between.
+    dates = sorted(by_day)
+    daily = np.array([by_day[d] for d in dates])
+    single = split_tests(daily, splits.shares)
+    cumulative = _stats.cumulative_tests(daily, splits.shares)
+    sequential = sequential_p_values(daily, splits.shares)
+    days = [DayResult(d, arm_totals(counts), float(p), total.p_value, anytime)
+            for d, counts, p, total, anytime in zip(dates, daily, single.p_value, cumulative, sequential)]
+    crossing = _stats.first_crossing([d.cumulative_p for d in days], threshold)
+    found = onset(daily, splits.shares)
+    if found is None:
+        return Timeline(days, None, None, dates[crossing] if crossing is not None else None)
+    return Timeline(days, dates[found.day], (dates[found.low], dates[found.high]),
+                    dates[crossing] if crossing is not None else None)
 
 
-def localise(tables: UnitTables, experiment: int, design: Design, segments: Sequence[SegmentResult],
-             names: Sequence[str], threshold: float) -> Localisation | None:
-    """Drill down from the segment that explains most of the mismatch, one attribute at a time.
+def localise(splits: Splits, start: SegmentResult, names: Sequence[str], threshold: float) -> Localisation:
+    """Drill down from a mismatched segment, one attribute at a time, and date the break there.
 
     At each step, the sub-segment (by another attribute) that carries most
     of the current segment's imbalance, and is itself a mismatch, narrows
     the segment; it stops when no attribute narrows it further.
     """
-    start = next((s for s in segments if s.srm and s.explained >= EXPLAINS_MOST), None)
-    if start is None:
-        return None
     chosen = dict(start.by)
-    counts = list(start.arm_units)
+    current = splits.split(within=chosen)
     while True:
         best = None
         for name in (n for n in names if n not in chosen):
-            for (value,), sub in tables.segment_units(experiment, (name,), within=chosen).items():
-                fit = _stats.chi_square_fit(sub, design.shares)
-                shift = _stats.leave_out(counts, sub, design.shares)
-                if fit.p_value < threshold and shift.explained >= EXPLAINS_MOST and \
-                        (best is None or shift.explained > best[2]):
+            for (value,), sub in splits.by_value((name,), within=chosen).items():
+                shift = _stats.leave_out(current, sub, splits.shares)
+                if shift.explained >= EXPLAINS_MOST and (best is None or shift.explained > best[2]) \
+                        and split_test(sub, splits.shares).p_value < threshold:
                     best = (name, value, shift.explained, sub)
         if best is None:
             break
         chosen[best[0]] = best[1]
-        counts = best[3]
-    rest = tables.arm_units(experiment, without=chosen)
-    days = day_results(design, tables.day_units(experiment, within=chosen))
-    crossing = _stats.first_crossing([d.cumulative_p for d in days], threshold)
-    p_rest = _stats.chi_square_fit(rest, design.shares).p_value
-    return Localisation(chosen, sum(counts), tuple(counts), _stats.chi_square_fit(counts, design.shares).p_value,
-                        p_rest, p_rest < threshold, days[crossing].day if crossing is not None else None)
+        current = best[3]
+    rest = split_test(splits.split(without=chosen), splits.shares)
+    dated = timeline(splits, threshold, within=chosen)
+    arms = arm_totals(current)
+    return Localisation(chosen, sum(arms), arms, split_test(current, splits.shares).p_value, rest.p_value,
+                        rest.p_value < threshold, dated.first_crossing, dated.onset_day, dated.onset_interval)
+
+
+def mismatch_start(segments: Sequence[SegmentResult], scope: str | None) -> SegmentResult | None:
+    """Where localising starts: for an overall mismatch, the segment explaining most of it (at least half);
+    for a mismatch seen in segments only, the most significant segment."""
+    if scope == "overall":
+        return next((s for s in segments if s.srm and s.explained >= EXPLAINS_MOST), None)
+    if scope == "segment":
+        return min((s for s in segments if s.srm), key=lambda s: (s.p_adjusted, s.p_value), default=None)
+    return None

@@ -24,7 +24,6 @@ import json
 import os
 import sys
 from dataclasses import dataclass
-from datetime import date
 from pathlib import Path
 from typing import Any, Callable, Iterator, Mapping, Sequence
 
@@ -33,7 +32,9 @@ from bucketing.batch import assign_frame, layer_column
 
 from .._errors import LogError, MissingFieldError
 from ._designs import Design
-from ._engine import NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary
+from ._engine import (
+    CONFIG_VERSION, FIRST_DAY, NO_VALUE, ArmCounts, CensusRow, Progress, ReplayUnit, Segment, UnitSummary, Window,
+)
 from ._files import LogFile, format_of, resolve_files
 from ._malformed import PROBLEM_KINDS, _with_lines
 from ._results import Malformed, MalformedExample
@@ -83,11 +84,11 @@ class SparkEngine:
         self.session = session
 
     def read(self, source: Sequence[str] | Any, columns: Mapping[str, str] | None, attributes: Sequence[str], *,
-             keep_versions: bool, log_format: str | None = None,
-             progress: Progress | None = None) -> SparkUnitTables:
+             keep_versions: bool, log_format: str | None = None, progress: Progress | None = None,
+             defaults: Mapping[str, str] | None = None) -> SparkUnitTables:
         spark = self.session or spark_session(self.conf)
         spark.conf.set("spark.sql.session.timeZone", "UTC")
-        names = FieldNames.of(columns, attributes)
+        names = FieldNames.of(columns, attributes, defaults)
         reader = _Reader(spark, names)
         if type(source).__module__.startswith("pyspark."):
             rows = reader.frame(source, f"<spark.{type(source).__name__}>")
@@ -216,7 +217,7 @@ class _Reader:
     def _check_columns(self, present: Mapping[str, str], where: str) -> None:
         columns = self.names.columns
         for name in REQUIRED_FIELDS:
-            if columns[name] not in present:
+            if columns[name] not in present and name not in self.names.defaults:
                 raise MissingFieldError(f"{where}: no column {columns[name]!r} for field {name!r} "
                                         f"(columns: {', '.join(present)})", name, columns[name])
         self.present.update(n for n in RECORD_FIELDS if columns[n] in present)
@@ -290,6 +291,10 @@ class _Reader:
         values = {k: F.col(f"_v{i}") for i, k in enumerate(keys)}
         types = {k: F.col(f"_t{i}") for i, k in enumerate(keys)}
         values["unit"] = F.when(types["unit"] == "VARCHAR", values["unit"]).otherwise(_integer_text(values["unit"]))
+        if self.names.defaults:  # a field no sampled record has takes its default
+            keys_seen = {row[0] for row in lines.limit(JSON_SAMPLE_LINES)
+                         .select(F.explode(F.json_object_keys("line"))).distinct().collect()}
+            values.update({n: F.lit(v) for n, v in self.names.defaults.items() if self.names.columns[n] not in keys_seen})
         kinds = {"unit": F.when(types["unit"].isNotNull() & (types["unit"] != "NULL") & values["unit"].isNull(),
                                 F.concat(F.lit("expected a string or an integer, found "), F.lower(types["unit"])))}
         kinds.update({n: F.when(~types[n].isin("VARCHAR", "NULL", "BIGINT", "UBIGINT"),
@@ -311,7 +316,7 @@ class _Reader:
             kind = present.get(column)
             col = F.col(f"`{column}`")
             if kind is None:
-                values[name] = F.lit(None).cast("string")
+                values[name] = F.lit(self.names.defaults.get(name)).cast("string")
             elif name == "ts" and kind.startswith("timestamp"):
                 values[name] = col.cast("timestamp")
                 native.append(name)
@@ -506,8 +511,14 @@ class SparkUnitTables:
         taken = set(self.names.columns.values()) | set(RECORD_FIELDS)
         return [name for name in found if name not in taken]
 
-    def census(self, designs: Sequence[Design]) -> list[CensusRow]:
+    def census(self, designs: Sequence[Design], window: Window = (None, None)) -> list[CensusRow]:
         F = _functions()
+        since, until = window
+        inside = F.lit(True)
+        if since is not None:
+            inside = inside & (F.to_date("ts") >= F.lit(since))
+        if until is not None:
+            inside = inside & (F.to_date("ts") <= F.lit(until))
         outside = F.lit(False)
         if any(d.start or d.end for d in designs):
             case = None
@@ -522,7 +533,7 @@ class SparkUnitTables:
             outside = F.coalesce(case, F.lit(False))
         kept = F.array(*[F.col(c) for c in self.kept]) if self.kept else F.lit(None).cast("array<string>")
         usable = F.col("_problem").isNull() & ~F.col("outside")
-        records = (self.rows
+        records = (self.rows.where(F.col("_problem").isNotNull() | inside)
                    .select("_problem", "layer", "experiment", "arm", outside.alias("outside"), "unit", "ts", "forced",
                            "_ts_epoch", kept.alias("kept"))
                    .withColumn("unit", F.when(usable, F.col("unit"))))
@@ -590,24 +601,26 @@ class SparkUnitTables:
         self.replayed: dict[int, list[tuple[ReplayUnit, str | None]]] | None = None
 
     def _counts_cube(self) -> list[tuple] | None:
-        """Tested units per experiment, arm, day and attribute values, when that table is small (else None).
+        """Tested units per experiment, arm, day, config version and attribute values, when that table is small.
 
         The audit asks many small questions (per arm, per day, per segment,
         with or without a segment); one Spark job answers them all when the
-        combinations are few, instead of one job per question.
+        combinations are few, instead of one job per question. None when it is not small.
         """
         F = _functions()
         attributes = [self.names.attribute_column(a) for a in self.attributes]
+        version = F.col("config") if "config" in self.kept else F.lit(None).cast("string")
         tested = self.unit_rows.where(~F.col("multi") & ~F.col("forced"))
-        cube = tested.groupBy("exp", "arm", F.to_date("first_ts").alias("day"), *attributes).count()
+        cube = tested.groupBy("exp", "arm", F.to_date("first_ts").alias("day"), version.alias("version"),
+                              *attributes).count()
         rows = self._collect(cube.limit(CUBE_MAX_ROWS + 1))
         return None if len(rows) > CUBE_MAX_ROWS else [tuple(row) for row in rows]
 
     def _cube_rows(self, experiment: int, within: Segment | None, without: Segment | None) -> Iterator[tuple]:
-        """(arm, day, attribute values with NO_VALUE for nulls, units) of an experiment's cube rows in a segment."""
+        """(arm, day, version, attribute values with NO_VALUE for nulls, units) of an experiment's cube rows."""
         assert self.cube is not None
         position = {name: i for i, name in enumerate(self.attributes)}
-        for exp, arm, day, *rest in self.cube:
+        for exp, arm, day, version, *rest in self.cube:
             if exp != experiment:
                 continue
             values = tuple(NO_VALUE if v is None else v for v in rest[:-1])
@@ -615,7 +628,7 @@ class SparkUnitTables:
                 continue
             if without and all(values[position[k]] == v for k, v in without.items()):
                 continue
-            yield arm, day, values, rest[-1]
+            yield arm, day, version, values, rest[-1]
 
     def _segment(self, segment: Segment) -> Any:
         F = _functions()
@@ -633,17 +646,6 @@ class SparkUnitTables:
             where = where & ~self._segment(without)
         return self.unit_rows.where(where)
 
-    def arm_units(self, experiment: int, within: Segment | None = None,
-                  without: Segment | None = None) -> ArmCounts:
-        counts = [0] * self.arms[experiment]
-        if self.cube is not None:
-            for arm, _, _, units in self._cube_rows(experiment, within, without):
-                counts[arm] += units
-            return counts
-        for arm, units in self._collect(self._tested(experiment, within, without).groupBy("arm").count()):
-            counts[arm] = units
-        return counts
-
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         F = _functions()
         if not hasattr(self, "summaries"):
@@ -658,31 +660,24 @@ class SparkUnitTables:
             self.summaries = {exp: UnitSummary(multi, forced, listed.get(exp, [])) for exp, multi, forced in by_exp}
         return self.summaries.get(experiment, UnitSummary(0, 0, []))
 
-    def day_units(self, experiment: int, within: Segment | None = None) -> dict[date, ArmCounts]:
+    def grouped_units(self, experiment: int, keys: Sequence[str], within: Segment | None = None,
+                      without: Segment | None = None) -> dict[tuple, ArmCounts]:
         F = _functions()
-        by_day: dict[date, ArmCounts] = {}
+        grouped: dict[tuple, ArmCounts] = {}
         if self.cube is not None:
-            rows = [(day, arm, units) for arm, day, _, units in self._cube_rows(experiment, within, None)]
-        else:
-            rows = self._collect(self._tested(experiment, within).groupBy(F.to_date("first_ts").alias("day"), "arm").count())
-        for day, arm, units in sorted(rows):
-            by_day.setdefault(day, [0] * self.arms[experiment])[arm] += units
-        return by_day
-
-    def segment_units(self, experiment: int, names: Sequence[str],
-                      within: Segment | None = None) -> dict[tuple[str, ...], ArmCounts]:
-        F = _functions()
-        grouped: dict[tuple[str, ...], ArmCounts] = {}
-        if self.cube is not None:
-            positions = [self.attributes.index(n) for n in names]
-            for arm, _, values, units in self._cube_rows(experiment, within, None):
-                key = tuple(values[p] for p in positions)
+            position = {name: i for i, name in enumerate(self.attributes)}
+            for arm, day, version, values, units in self._cube_rows(experiment, within, without):
+                key = tuple(day if k == FIRST_DAY else version if k == CONFIG_VERSION else values[position[k]]
+                            for k in keys)
                 grouped.setdefault(key, [0] * self.arms[experiment])[arm] += units
             return grouped
-        keys = [F.coalesce(F.col(self.names.attribute_column(n)), F.lit(NO_VALUE)).alias(f"k{i}")
-                for i, n in enumerate(names)]
-        for row in self._collect(self._tested(experiment, within).groupBy(*keys, "arm").count()):
-            grouped.setdefault(tuple(row[:len(names)]), [0] * self.arms[experiment])[row[len(names)]] = row[-1]
+        columns = [(F.to_date("first_ts") if k == FIRST_DAY else
+                    (F.col("config") if "config" in self.kept else F.lit(None).cast("string"))
+                    if k == CONFIG_VERSION else
+                    F.coalesce(F.col(self.names.attribute_column(k)), F.lit(NO_VALUE))).alias(f"k{i}")
+                   for i, k in enumerate(keys)]
+        for row in self._collect(self._tested(experiment, within, without).groupBy(*columns, "arm").count()):
+            grouped.setdefault(tuple(row[:len(keys)]), [0] * self.arms[experiment])[row[len(keys)]] += row[-1]
         return grouped
 
     def records_per_unit(self, experiment: int) -> dict[int, ArmCounts]:

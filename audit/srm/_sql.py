@@ -85,11 +85,14 @@ class FieldNames:
     columns: Mapping[str, str]  # record field -> log column, for every field of the record
     attributes: tuple[str, ...] = ()
     mapped: Mapping[str, str] = field(default_factory=dict)
+    defaults: Mapping[str, str] = field(default_factory=dict)  # record field -> value, where no source has it
 
     @classmethod
-    def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str]) -> FieldNames:
+    def of(cls, columns: Mapping[str, str] | None, attributes: Iterable[str],
+           defaults: Mapping[str, str] | None = None) -> FieldNames:
         mapped = dict(columns or {})
-        return cls({name: mapped.get(name, name) for name in RECORD_FIELDS}, tuple(dict.fromkeys(attributes)), mapped)
+        return cls({name: mapped.get(name, name) for name in RECORD_FIELDS}, tuple(dict.fromkeys(attributes)), mapped,
+                   dict(defaults or {}))
 
     def attribute_column(self, name: str) -> str:
         return f"a_{self.attributes.index(name)}"
@@ -198,15 +201,17 @@ def normalised_select(source: str, values: Mapping[str, str], kinds: Mapping[str
 
 
 def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str, originals: Mapping[str, str] = {},
-                 max_line_bytes: int = DUCKDB_MAX_LINE) -> Select:
+                 max_line_bytes: int = DUCKDB_MAX_LINE, absent: Iterable[str] = ()) -> Select:
     """JSON Lines files: each line parsed in SQL; lines that are not objects are `unparseable` or `truncated`.
 
-    `originals` maps a clean copy among `paths` to the log it stands for.
+    `originals` maps a clean copy among `paths` to the log it stands for. Fields in `absent` (no sampled record
+    has them) take their value from `names.defaults`, if any.
     """
     fields = [names.columns[n] for n in RECORD_FIELDS] + [names.log_column(a) for a in names.attributes]
     json_paths = "[" + ", ".join(text(json_pointer(n)) for n in fields) + "]"
     index = {n: i + 1 for i, n in enumerate(list(RECORD_FIELDS) + ["a:" + a for a in names.attributes])}
     values = {k: f"v[{i}]" for k, i in index.items()}
+    values.update({n: text(names.defaults[n]) for n in absent if n in names.defaults})
     types = {k: f"t[{i}]" for k, i in index.items()}
     values["unit"] = f"CASE WHEN {types['unit']} = 'VARCHAR' THEN {values['unit']} ELSE integer_text({values['unit']}) END"
     kinds = {"unit": f"CASE WHEN {types['unit']} <> 'NULL' AND {values['unit']} IS NULL "
@@ -233,11 +238,12 @@ def jsonl_select(paths: Sequence[str], names: FieldNames, rejects: str, original
     return normalised_select(parsed, values, kinds, names, broken=broken, extra=extra)
 
 
-def jsonl_keys(paths: Sequence[str], sample_lines: int) -> str:
-    """The keys of the first `sample_lines` JSON objects of the files."""
+def jsonl_keys(paths: Sequence[str], sample_lines: int, max_line_bytes: int = DUCKDB_MAX_LINE) -> str:
+    """The keys of the first `sample_lines` JSON objects of the files (lines the reader rejects, such as text that
+    is not UTF-8, are passed over: the records' own reading counts them)."""
     return f"""
         SELECT DISTINCT unnest(json_keys(line)) FROM (
-            SELECT line FROM {raw_lines(paths)}
+            SELECT line FROM {raw_lines(paths, "ignore_errors=true" + line_limits(max_line_bytes))}
             WHERE json_valid(line) AND json_type(line) = 'OBJECT' LIMIT {int(sample_lines)})"""
 
 
@@ -256,7 +262,7 @@ def typed_select(source: str, present: Mapping[str, str], names: FieldNames, ext
         column = names.columns[name]
         kind = present.get(column)
         if kind is None:
-            values[name] = "NULL::VARCHAR"
+            values[name] = text(names.defaults[name]) if name in names.defaults else "NULL::VARCHAR"
         elif name in NATIVE_TYPES and kind.startswith(NATIVE_TYPES[name]):
             values[name] = ident(column)
             native.append(name)
@@ -348,7 +354,8 @@ def _design_of(rows: str) -> str:
             f"AND k.layer IS NOT DISTINCT FROM {rows}.layer")
 
 
-def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: tuple[date, date]) -> str:
+def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: tuple[date, date],
+              window: tuple[date | None, date | None] = (None, None)) -> str:
     """The one pass over the records: a row per unit and logged (layer, experiment, arm), `unit_arms`.
 
     Each row has the unit's records, how many of them repeat another one
@@ -357,19 +364,25 @@ def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: 
     outside their experiment's dates are only counted: their rows have no
     unit. A record dated outside the `plausible` days is `implausible`, and
     outside its experiment's dates whatever they are; `windows` says
-    whether some design has dates (in `design_windows`).
+    whether some design has dates (in `design_windows`). Usable records
+    dated outside the audit's `window` (first and last day, both included)
+    are not read at all.
     """
+    since, until = window
+    bounds = ([f"ts >= DATE '{since.isoformat()}'"] if since else []) + \
+        ([f"ts < DATE '{until.isoformat()}' + INTERVAL 1 DAY"] if until else [])
+    inside = f"WHERE _problem IS NOT NULL OR ({' AND '.join(bounds)})" if bounds else ""
     values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
     epoch = "bool_or(_ts_epoch IS NOT NULL)" if epoch_times else "false"
     first, last = plausible
     implausible = (f"coalesce(ts < TIMESTAMP '{first.isoformat()}' OR "
                    f"ts >= TIMESTAMP '{(last + timedelta(days=1)).isoformat()}', false)")
     source = "exposure_rows"
-    window = "false"
+    dated = "false"
     if windows:
         source = ("exposure_rows LEFT JOIN design_windows w ON w.experiment = exposure_rows.experiment "
                   "AND w.layer IS NOT DISTINCT FROM exposure_rows.layer")
-        window = "coalesce(CAST(ts AS DATE) < w.first_day OR CAST(ts AS DATE) > w.last_day, false)"
+        dated = "coalesce(CAST(ts AS DATE) < w.first_day OR CAST(ts AS DATE) > w.last_day, false)"
     return f"""
         CREATE TEMP TABLE unit_arms AS
         SELECT * EXCLUDE (times), records - list_unique(times) AS repeats
@@ -381,8 +394,8 @@ def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: 
             FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
                   FROM (SELECT _problem, layer, experiment, arm, implausible OR window_outside AS outside, implausible,
                                unit, ts, forced, _ts_epoch, {values} AS kept
-                        FROM (SELECT exposure_rows.*, {implausible} AS implausible, {window} AS window_outside
-                              FROM {source})))
+                        FROM (SELECT exposure_rows.*, {implausible} AS implausible, {dated} AS window_outside
+                              FROM {source} {inside})))
             GROUP BY _problem, layer, experiment, arm, outside, implausible, unit)"""
 
 
@@ -396,7 +409,8 @@ CENSUS = """
 
 
 def unit_rows(kept: Sequence[str]) -> str:
-    """One row per unit and experiment, `unit_rows`: its arm at first exposure, and whether it saw several arms.
+    """One row per unit and experiment, `unit_rows`: its arm at first exposure, its records, and whether it saw
+    several arms.
 
     Experiments and arms are those of the design tables (`design_tables`).
     A unit seen in several arms is left out of every count, so which of
@@ -409,7 +423,7 @@ def unit_rows(kept: Sequence[str]) -> str:
         FROM (
             SELECT k.exp, unit, min(first_ts) AS first_ts, arg_min(a.arm_index, first_ts) AS arm,
                    arg_min(first_kept, first_ts) AS first_kept, min(a.arm_index) AS arm_low,
-                   max(a.arm_index) AS arm_high, bool_or(forced) AS forced
+                   max(a.arm_index) AS arm_high, bool_or(forced) AS forced, sum(records) AS records
             FROM {_design_of("unit_arms")}
             JOIN design_arms a ON a.exp = k.exp AND a.arm = unit_arms.arm
             WHERE unit IS NOT NULL
@@ -430,7 +444,6 @@ def tested_units(experiment: int | None, where: str = "true") -> str:
     return f"{which} AND NOT multi AND NOT forced AND ({where})"
 
 
-ARM_UNITS = f"SELECT exp, arm, count(*) FROM unit_rows WHERE {tested_units(None)} GROUP BY ALL"
 LEFT_OUT_UNITS = """
     SELECT exp, count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi) FROM unit_rows GROUP BY exp"""
 
@@ -440,11 +453,6 @@ def multi_arm_examples(per_experiment: int) -> str:
     return f"""
         SELECT exp, unit, arm_low, arm_high FROM unit_rows WHERE multi
         QUALIFY row_number() OVER (PARTITION BY exp ORDER BY unit) <= {int(per_experiment)} ORDER BY exp, unit"""
-
-
-def day_units(where: str) -> str:
-    """Units per experiment, day of first exposure and arm."""
-    return f"SELECT exp, CAST(first_ts AS DATE), arm, count(*) FROM unit_rows WHERE {where} GROUP BY ALL"
 
 
 EPOCH_NOTES = """

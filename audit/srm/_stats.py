@@ -11,19 +11,14 @@ from __future__ import annotations
 import math
 from typing import NamedTuple, Sequence
 
+import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special, stats
 
 from .._errors import AuditError
+from ._exact import SplitTest, split_test, split_tests
 
 DEFAULT_THRESHOLD = 0.0005
-
-
-class FitResult(NamedTuple):
-    """Pearson chi-square goodness of fit of observed counts to expected shares."""
-
-    statistic: float
-    df: int
-    p_value: float
 
 
 class ArmGap(NamedTuple):
@@ -40,7 +35,7 @@ class ArmGap(NamedTuple):
 class SegmentShift(NamedTuple):
     """What leaving one segment out does to the overall test."""
 
-    fit_without: FitResult
+    test_without: SplitTest
     explained: float  # share of the overall chi-square statistic that goes away without the segment
 
 
@@ -50,31 +45,6 @@ def expected_shares(weights: Sequence[float]) -> list[float]:
     if total <= 0 or any(w < 0 for w in weights):
         raise AuditError(f"weights must be non-negative with a positive sum, found {list(weights)}")
     return [w / total for w in weights]
-
-
-def chi_square_fit(observed: Sequence[int], shares: Sequence[float]) -> FitResult:
-    """Pearson chi-square test that `observed` counts follow `shares`.
-
-    Arms with an expected share of zero are left out of the test; with fewer
-    than two arms left, or no units, there is nothing to test (p = 1).
-    """
-    if len(observed) != len(shares):
-        raise AuditError(f"{len(observed)} observed counts for {len(shares)} expected shares")
-    pairs = [(o, s) for o, s in zip(observed, shares) if s > 0]
-    total = sum(o for o, _ in pairs)
-    if len(pairs) < 2 or total == 0:
-        return FitResult(0.0, max(len(pairs) - 1, 0), 1.0)
-    scale = sum(s for _, s in pairs)
-    expected = [total * s / scale for _, s in pairs]
-    # Pearson's statistic and its upper tail, as scipy.stats.chisquare computes them (chi2.sf is special.chdtrc),
-    # without its argument checks: an audit of 100,000 experiments makes over a million of these fits.
-    statistic = sum((o - e) ** 2 / e for (o, _), e in zip(pairs, expected))
-    return FitResult(float(statistic), len(pairs) - 1, chi_square_p_value(statistic, len(pairs) - 1))
-
-
-def chi_square_p_value(statistic: float, df: int) -> float:
-    """Upper-tail p-value of a chi-square statistic."""
-    return float(special.chdtrc(df, statistic))
 
 
 def arm_gaps(observed: Sequence[int], shares: Sequence[float]) -> list[ArmGap]:
@@ -106,23 +76,35 @@ def holm_adjust(p_values: Sequence[float]) -> list[float]:
     return adjusted
 
 
-def leave_out(total: Sequence[int], segment: Sequence[int], shares: Sequence[float]) -> SegmentShift:
-    """The overall test without one segment's units, and how much of the imbalance that removes."""
-    rest = [t - s for t, s in zip(total, segment)]
-    overall = chi_square_fit(total, shares)
-    without = chi_square_fit(rest, shares)
+def leave_out(total: ArrayLike, segment: ArrayLike, shares: ArrayLike) -> SegmentShift:
+    """The overall test without one segment's units, and how much of the imbalance that removes.
+
+    Counts per arm, or per design version and arm with shares per version (see `split_test`).
+    """
+    rest = np.asarray(total) - np.asarray(segment)
+    overall = split_test(total, shares)
+    without = split_test(rest, shares)
     explained = 1 - without.statistic / overall.statistic if overall.statistic > 0 else 0.0
     return SegmentShift(without, explained)
 
 
-def cumulative_fits(daily: Sequence[Sequence[int]], shares: Sequence[float]) -> list[FitResult]:
-    """The test on the counts accumulated up to each day (counts of units new that day)."""
-    running = [0] * len(shares)
-    fits = []
-    for counts in daily:
-        running = [r + c for r, c in zip(running, counts)]
-        fits.append(chi_square_fit(running, shares))
-    return fits
+def cumulative_tests(daily: ArrayLike, shares: ArrayLike) -> list[SplitTest]:
+    """The test on the units accumulated up to each day, from the units new each day."""
+    running = np.cumsum(np.asarray(daily, dtype=np.int64), axis=0)
+    tests = split_tests(running, shares)
+    return [tests.at(day) for day in range(len(running))]
+
+
+def mixture_shares(counts: ArrayLike, shares: ArrayLike) -> list[float]:
+    """The expected share of each arm: per design version, its units times its shares, summed, over all units.
+
+    One row of counts and shares (one design) gives the shares themselves.
+    """
+    matrix = np.atleast_2d(np.asarray(shares, dtype=float))
+    per_version = np.atleast_2d(np.asarray(counts, dtype=float)).sum(axis=1)
+    if per_version.sum() == 0:  # no units: every version weighs the same
+        per_version = np.ones(len(matrix))
+    return [float(s) for s in per_version @ matrix / per_version.sum()]
 
 
 def first_crossing(p_values: Sequence[float], threshold: float) -> int | None:
@@ -148,35 +130,3 @@ def proportion_test(hits: int, total: int, rest_hits: int, rest_total: int) -> f
         return 1.0
     table = [[hits, total - hits], [rest_hits, rest_total - rest_hits]]
     return float(stats.chi2_contingency(table, correction=False)[1])
-
-
-DEFAULT_CONCENTRATION = 1000.0  # prior share SD about 1.6 points at 50/50: tuned to the small imbalances SRM is about
-
-
-def sequential_p_values(daily: Sequence[Sequence[int]], shares: Sequence[float],
-                       concentration: float = DEFAULT_CONCENTRATION) -> list[float]:
-    """Anytime-valid p-values of the split after each day, safe to look at every day.
-
-    A chi-square test repeated every day crosses any threshold by chance more
-    often than the threshold says. This test does not: it is the Bayes factor
-    of a Dirichlet-multinomial alternative centred on the design (prior
-    Dirichlet(concentration x shares)) against the design's multinomial, and
-    its running minimum of 1/BF is a p-value valid at every look (Ville's
-    inequality; the construction follows Lindon & Malek, "Anytime-valid
-    inference for multinomial count data", NeurIPS 2022). `daily` holds the
-    counts of units new each day, per arm.
-    """
-    kept = [i for i, s in enumerate(shares) if s > 0]
-    alphas = [concentration * shares[i] for i in kept]
-    logs = [math.log(shares[i]) for i in kept]
-    running = [0] * len(kept)
-    best, out = 1.0, []
-    for counts in daily:
-        running = [r + counts[i] for r, i in zip(running, kept)]
-        n = sum(running)
-        log_bf = math.lgamma(concentration) - math.lgamma(concentration + n)
-        for a, x, log_share in zip(alphas, running, logs):
-            log_bf += math.lgamma(a + x) - math.lgamma(a) - x * log_share
-        best = min(best, math.exp(-log_bf) if log_bf > -700 else 1.0)
-        out.append(best)
-    return out
