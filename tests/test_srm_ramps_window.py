@@ -5,7 +5,7 @@ import random
 from datetime import date, timedelta
 
 from audit import audit_logs
-from bucketing import load_config
+from bucketing import Assigner, load_config
 from tests.invented_logs import write_jsonl
 from tests.test_srm_verdict import START, daily_log
 
@@ -124,3 +124,50 @@ def test_an_expected_split_needs_no_experiment_column_on_a_log_of_one_experiment
         assert result["experiment"] == "(unnamed)" and result["units"] == 1000
     without = sortition("srm", plain_csv, "--config", "configs_example", "--quiet")
     assert without.exit_code == 2 and "experiment" in without.stderr
+
+
+ROLLOUT = CONFIG.replace("        status: running\n", "        status: running\n        rollout: right\n")
+
+
+def returning_ramp(tmp_path):
+    """A rollout ramped from 10 % to 25 % after a week, with half the units returning after the ramp: the SDK gives
+    each record its arm under the version then in force, and one unit ('U-switch') is logged in two arms under one
+    version. Returns the versions directory, the log and how many units the ramp moved."""
+    versions = tmp_path / "versions"
+    versions.mkdir()
+    assigners = []
+    for name, (left, right) in (("v1", (90, 10)), ("v2", (75, 25))):
+        path = versions / f"{name}.yaml"
+        path.write_text(ROLLOUT.format(left=left, right=right))
+        assigners.append(Assigner(load_config(path)))
+    records, moved = [], 0
+    for n in range(6000):
+        unit = f"U-{n}"
+        first_day = n % 7
+        seen = [(first_day, assigners[0]), (first_day + 7, assigners[1])] if n < 3000 else [(first_day + 7, assigners[1])]
+        arms = []
+        for day, assigner in seen:
+            arm = assigner.assign({"learner": unit}).arm("layer-a")
+            arms.append(arm)
+            records.append({"ts": f"{(START + timedelta(day)).isoformat()}T12:00:00.000Z", "unit": unit,
+                            "unit_type": "learner", "layer": "layer-a", "experiment": "exp-a", "arm": arm,
+                            "config": assigner.version, "forced": False})
+        moved += len(set(arms)) > 1
+    switching = [{"ts": f"{START.isoformat()}T1{h}:00:00.000Z", "unit": "U-switch", "unit_type": "learner",
+                  "layer": "layer-a", "experiment": "exp-a", "arm": arm, "config": assigners[0].version,
+                  "forced": False} for h, arm in ((1, "left"), (2, "right"))]
+    return versions, write_jsonl(tmp_path / "ramp.jsonl", records + switching), moved
+
+
+def test_units_a_ramp_moves_are_not_in_two_arms_but_a_unit_switching_within_a_version_is(tmp_path):
+    """Units that change arm with the config version are counted once, at their first exposure; a unit logged in
+    two arms under one version stays "in two arms"."""
+    versions, log, moved = returning_ramp(tmp_path)
+    result, = audit_logs(log, config=versions / "v2.yaml", config_versions=versions, replay_units=0).results
+    # rollout 10 % -> 25 %: about 15/90 of the returning units first seen in 'left' move (common practice, no source)
+    assert 300 < moved < 700
+    assert result.moved_with_version_units == moved
+    assert result.multi_arm_units == 1 and result.multi_arm_examples[0]["unit"] == "U-switch"
+    assert result.units == 6000 and not result.srm
+    expected, = audit_logs(log, expect={"left": 75, "right": 25}, replay_units=0).results
+    assert expected.moved_with_version_units == 0 and expected.multi_arm_units == moved + 1  # no versions kept

@@ -83,20 +83,28 @@ def repeats_line(result: ExperimentResult) -> str | None:
     return "exact repeats: " + ", ".join(parts)
 
 
+def moved_line(result: ExperimentResult) -> str | None:
+    """Units whose arm changed with the config version (a ramp moving them): counted once, not as in two arms."""
+    if not result.moved_with_version_units:
+        return None
+    return (f"{result.moved_with_version_units:,} units changed arm with the config version (a ramp moved them): "
+            f"counted at their first exposure")
+
+
 def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     mark = "MISMATCH" if result.srm else "balanced"
     lines = [f"{mark}  {result.layer} / {result.experiment}   {result.units:,} units   "
              f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)} ({result.test})"]
     repeats = repeats_line(result)
+    facts = [f"    {line}" for line in (repeats, moved_line(result)) if line]
     if not result.srm:
-        return lines + ([f"    {repeats}"] if repeats else []) + [f"    note: {c.message}" for c in result.causes]
+        return lines + facts + [f"    note: {c.message}" for c in result.causes]
     lines += [f"    {line}" for line in verdict_lines(result, threshold)]
     rows = [[a.arm, f"{a.units:,}", f"{a.observed_share:.2%}", f"{a.expected_share:.2%}",
              f"{a.ratio:.3f}", f"{a.excess_units:+,.0f}", f"{a.records:,}", f"{a.records_per_unit:.2f}"]
             for a in result.arms]
     lines += _table(["arm", "units", "observed", "expected", "ratio", "excess", "records", "per unit"], rows)
-    if repeats:
-        lines.append(f"    {repeats}")
+    lines += facts
     if result.days:
         since = (f", first below {threshold:g} on {result.first_sequential_srm_day.isoformat()}"
                  if result.first_sequential_srm_day else f", not below {threshold:g}")

@@ -185,6 +185,9 @@ def _experiment(result: ExperimentResult, threshold: float) -> str:
         facts.append(f"arm replay: {result.replay_mismatch_share:.2%} of {result.replay_checked:,} units differ")
     if result.multi_arm_units:
         facts.append(f"{result.multi_arm_units:,} units in two arms (left out)")
+    if result.moved_with_version_units:
+        facts.append(f"{result.moved_with_version_units:,} units changed arm with the config version "
+                     f"(counted at first exposure)")
     repeats = repeats_line(result)
     if repeats:
         facts.append(repeats)

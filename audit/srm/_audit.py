@@ -315,7 +315,7 @@ def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, out
         duplicate_records=sum(a.duplicate_records for a in arms), multi_arm_units=summary.multi_arm,
         multi_arm_examples=tuple({"unit": unit, "arms": [design.arms[low], design.arms[high]]}
                                  for unit, low, high in summary.multi_arm_examples),
-        forced_units=summary.forced, outside_window_records=outside_records,
+        forced_units=summary.forced, outside_window_records=outside_records, moved_with_version_units=summary.moved,
         records_p_value=duplicates.rank_test.p_value, test=test.test, mc_error=test.mc_error,
         closed_arm_units=test.closed_units,
         duplicate_arm=design.arms[duplicates.arm] if duplicates.arm is not None else None,

@@ -134,8 +134,8 @@ class DuckDBUnitTables:
 
     def unit_summary(self, experiment: int, examples: int) -> UnitSummary:
         if self._summaries is None:
-            self._summaries = {exp: UnitSummary(multi, forced, [])
-                               for exp, multi, forced in self.scan.query(_sql.LEFT_OUT_UNITS)}
+            self._summaries = {exp: UnitSummary(multi, forced, [], moved)
+                               for exp, multi, forced, moved in self.scan.query(_sql.LEFT_OUT_UNITS)}
             for exp, unit, low, high in self.scan.query(_sql.multi_arm_examples(examples)):
                 self._summaries[exp].multi_arm_examples.append((unit, low, high))
         return self._summaries.get(experiment, UnitSummary(0, 0, []))

@@ -49,6 +49,7 @@ class UnitSummary(NamedTuple):
     multi_arm: int  # seen in more than one arm
     forced: int  # forced into their arm (and in one arm only)
     multi_arm_examples: list[tuple[str, int, int]]  # (unit, lowest arm index, highest arm index)
+    moved: int = 0  # in several arms, each with config versions of its own (counted at first exposure)
 
 
 class ReplayUnit(NamedTuple):

@@ -228,6 +228,7 @@ class ExperimentResult:
     duplicate_basis: str | None = None  # "exact_repeats" or "records_per_unit"
     onset_day: date | None = None  # for a mismatch: the estimated first broken day (change point)
     onset_interval: tuple[date, date] | None = None
+    moved_with_version_units: int = 0  # changed arm only with a config version change: counted at first exposure
 
     @property
     def replay_mismatch_share(self) -> float | None:
@@ -260,6 +261,7 @@ class ExperimentResult:
             "records_p_value": self.records_p_value,
             "multi_arm_units": self.multi_arm_units,
             "multi_arm_examples": [dict(e) for e in self.multi_arm_examples],
+            "moved_with_version_units": self.moved_with_version_units,
             "duplicate_records": self.duplicate_records,
             "forced_units": self.forced_units,
             "outside_window_records": self.outside_window_records,

@@ -535,14 +535,17 @@ class SparkUnitTables:
         usable = F.col("_problem").isNull() & ~F.col("outside")
         records = (self.rows.where(F.col("_problem").isNotNull() | inside)
                    .select("_problem", "layer", "experiment", "arm", outside.alias("outside"), "unit", "ts", "forced",
-                           "_ts_epoch", kept.alias("kept"))
+                           "_ts_epoch", "config", kept.alias("kept"))
                    .withColumn("unit", F.when(usable, F.col("unit"))))
         epoch = F.bool_or(F.col("_ts_epoch").isNotNull()) if self.reader.times_as_text else F.lit(False)
+        # the config versions a unit's records in one arm name (kept with the versions, for `moved` units)
+        versions = (F.array_distinct(F.collect_list(F.when(F.col("unit").isNotNull(), F.col("config"))))
+                    if "config" in self.kept else F.lit(None).cast("array<string>"))
         self.unit_arms = self._cache(
             records.groupBy("_problem", "layer", "experiment", "arm", "outside", "unit").agg(
                 F.count(F.lit(1)).alias("records"), F.min("ts").alias("first_ts"),
                 F.min_by("kept", "ts").alias("first_kept"), F.bool_or("forced").alias("forced"),
-                F.count_distinct("ts").alias("times"), epoch.alias("epoch_times"))
+                F.count_distinct("ts").alias("times"), epoch.alias("epoch_times"), versions.alias("versions"))
             .withColumn("repeats", F.when(F.col("unit").isNotNull(), F.col("records") - F.col("times"))))
         census = self.unit_arms.groupBy("_problem", "layer", "experiment", "arm", "outside").agg(
             F.sum("records"), F.sum("repeats"), F.bool_or("epoch_times"))
@@ -586,17 +589,23 @@ class SparkUnitTables:
         none = F.lit(None).cast("int")
         units = (self.unit_arms.where(F.col("unit").isNotNull())
                  .select((exp if exp is not None else none).alias("exp"), (arm if arm is not None else none).alias("arm"),
-                         "unit", "first_ts", "first_kept", "forced", "records")
+                         "unit", "first_ts", "first_kept", "forced", "records", "versions")
                  .where(F.col("arm").isNotNull())
                  .groupBy("exp", "unit").agg(
                      F.min("first_ts").alias("first_ts"), F.min_by("arm", "first_ts").alias("arm"),
                      F.min_by("first_kept", "first_ts").alias("first_kept"), F.min("arm").alias("arm_low"),
                      F.max("arm").alias("arm_high"), F.bool_or("forced").alias("forced"),
-                     F.sum("records").alias("records")))
+                     F.sum("records").alias("records"),
+                     # as `_sql.unit_rows`: the arm changed only where the config version did (no version in two arms)
+                     F.coalesce(F.bool_and(F.coalesce(F.size("versions"), F.lit(0)) > 0)
+                                & (F.sum(F.size("versions"))
+                                   == F.size(F.array_distinct(F.flatten(F.collect_list("versions"))))),
+                                F.lit(False)).alias("by_version")))
         kept = [F.col("first_kept")[i].alias(c) for i, c in enumerate(self.kept)]
+        changed = F.col("arm_low") != F.col("arm_high")
         self.unit_rows = self._cache(units.select(
             "exp", "unit", "first_ts", "arm", "arm_low", "arm_high", "forced", "records",
-            (F.col("arm_low") != F.col("arm_high")).alias("multi"), *kept))
+            (changed & ~F.col("by_version")).alias("multi"), (changed & F.col("by_version")).alias("moved"), *kept))
         self.cube = self._counts_cube()
         self.replayed: dict[int, list[tuple[ReplayUnit, str | None]]] | None = None
 
@@ -650,14 +659,15 @@ class SparkUnitTables:
         F = _functions()
         if not hasattr(self, "summaries"):
             by_exp = self._collect(self.unit_rows.groupBy("exp").agg(
-                F.count_if("multi"), F.count_if(F.col("forced") & ~F.col("multi"))))
+                F.count_if("multi"), F.count_if(F.col("forced") & ~F.col("multi")), F.count_if("moved")))
             first = (self.unit_rows.where("multi")
                      .withColumn("n", F.row_number().over(_window().partitionBy("exp").orderBy("unit")))
                      .where(F.col("n") <= int(examples)).select("exp", "unit", "arm_low", "arm_high", "n"))
             listed: dict[int, list[tuple[str, int, int]]] = {}
             for exp, unit, low, high, _ in sorted(self._collect(first), key=lambda r: (r[0], r[4])):
                 listed.setdefault(exp, []).append((unit, low, high))
-            self.summaries = {exp: UnitSummary(multi, forced, listed.get(exp, [])) for exp, multi, forced in by_exp}
+            self.summaries = {exp: UnitSummary(multi, forced, listed.get(exp, []), moved)
+                              for exp, multi, forced, moved in by_exp}
         return self.summaries.get(experiment, UnitSummary(0, 0, []))
 
     def grouped_units(self, experiment: int, keys: Sequence[str], within: Segment | None = None,

@@ -366,7 +366,8 @@ def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: 
     outside its experiment's dates whatever they are; `windows` says
     whether some design has dates (in `design_windows`). Usable records
     dated outside the audit's `window` (first and last day, both included)
-    are not read at all.
+    are not read at all. When the `config` column is kept, each row also
+    lists the config versions its records name (`versions`).
     """
     since, until = window
     bounds = ([f"ts >= DATE '{since.isoformat()}'"] if since else []) + \
@@ -374,6 +375,8 @@ def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: 
     inside = f"WHERE _problem IS NOT NULL OR ({' AND '.join(bounds)})" if bounds else ""
     values = f"list_value({', '.join(kept)})" if kept else "NULL::VARCHAR[]"
     epoch = "bool_or(_ts_epoch IS NOT NULL)" if epoch_times else "false"
+    versions = ("list_distinct(list(config) FILTER (WHERE unit IS NOT NULL))" if "config" in kept
+                else "NULL::VARCHAR[]")
     first, last = plausible
     implausible = (f"coalesce(ts < TIMESTAMP '{first.isoformat()}' OR "
                    f"ts >= TIMESTAMP '{(last + timedelta(days=1)).isoformat()}', false)")
@@ -390,10 +393,10 @@ def unit_arms(kept: Sequence[str], epoch_times: bool, windows: bool, plausible: 
             SELECT _problem, layer, experiment, arm, outside, implausible, unit, count(*) AS records,
                    min(ts) AS first_ts, max(ts) AS last_ts,
                    arg_min(kept, ts) AS first_kept, bool_or(forced) AS forced,
-                   list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch} AS epoch_times
+                   list(ts) FILTER (WHERE unit IS NOT NULL) AS times, {epoch} AS epoch_times, {versions} AS versions
             FROM (SELECT * REPLACE (CASE WHEN _problem IS NULL AND NOT outside THEN unit END AS unit)
                   FROM (SELECT _problem, layer, experiment, arm, implausible OR window_outside AS outside, implausible,
-                               unit, ts, forced, _ts_epoch, {values} AS kept
+                               unit, ts, forced, _ts_epoch, config, {values} AS kept
                         FROM (SELECT exposure_rows.*, {implausible} AS implausible, {dated} AS window_outside
                               FROM {source} {inside})))
             GROUP BY _problem, layer, experiment, arm, outside, implausible, unit)"""
@@ -413,17 +416,24 @@ def unit_rows(kept: Sequence[str]) -> str:
     several arms.
 
     Experiments and arms are those of the design tables (`design_tables`).
-    A unit seen in several arms is left out of every count, so which of
-    them comes first when two exposures share their time does not matter.
+    A unit seen in several arms is left out of every count (`multi`), so
+    which of them comes first when two exposures share their time does not
+    matter, unless its arm changed only where the config version its records
+    name changed (`moved`: no version is logged with two of its arms, as
+    when a ramp's new weights move it): that unit is counted at its first
+    exposure, under the design then in force.
     """
     return f"""
         CREATE TEMP TABLE unit_rows AS
-        SELECT * EXCLUDE (first_kept), arm_low <> arm_high AS multi
+        SELECT * EXCLUDE (first_kept, by_version), arm_low <> arm_high AND NOT by_version AS multi,
+               arm_low <> arm_high AND by_version AS moved
                {''.join(f', first_kept[{i + 1}] AS {c}' for i, c in enumerate(kept))}
         FROM (
             SELECT k.exp, unit, min(first_ts) AS first_ts, arg_min(a.arm_index, first_ts) AS arm,
                    arg_min(first_kept, first_ts) AS first_kept, min(a.arm_index) AS arm_low,
-                   max(a.arm_index) AS arm_high, bool_or(forced) AS forced, sum(records) AS records
+                   max(a.arm_index) AS arm_high, bool_or(forced) AS forced, sum(records) AS records,
+                   coalesce(bool_and(len(versions) > 0)
+                            AND sum(len(versions)) = len(list_distinct(flatten(list(versions)))), false) AS by_version
             FROM {_design_of("unit_arms")}
             JOIN design_arms a ON a.exp = k.exp AND a.arm = unit_arms.arm
             WHERE unit IS NOT NULL
@@ -445,7 +455,8 @@ def tested_units(experiment: int | None, where: str = "true") -> str:
 
 
 LEFT_OUT_UNITS = """
-    SELECT exp, count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi) FROM unit_rows GROUP BY exp"""
+    SELECT exp, count(*) FILTER (WHERE multi), count(*) FILTER (WHERE forced AND NOT multi), count(*) FILTER (WHERE moved)
+    FROM unit_rows GROUP BY exp"""
 
 
 def multi_arm_examples(per_experiment: int) -> str:

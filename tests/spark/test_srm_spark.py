@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import math
+from datetime import timedelta
 
 import pandas as pd
 import pytest
@@ -21,6 +22,8 @@ from audit.demo import write_demo_logs
 from audit.srm import SparkEngine, SparkTable, spark_session
 from tests.conftest import DEMO_SEGMENTS, EXAMPLE
 from tests.invented_logs import invented_records, write_csv, write_jsonl, write_parquet
+from tests.test_srm_ramps_window import returning_ramp
+from tests.test_srm_verdict import START, country_drop, daily_log
 
 SPLIT = {"left": 50, "right": 50}
 
@@ -174,3 +177,28 @@ def test_spark_conf_reaches_the_session(spark):
     finally:
         spark.conf.set("spark.sql.shuffle.partitions", before)
 
+
+
+def test_a_ramp_judged_per_version_with_moved_units_and_a_window_alike(spark, tmp_path):
+    """Mixture expectations, units the ramp moved, a unit in two arms, and --since/--until: the same JSON."""
+    versions, log, moved = returning_ramp(tmp_path)
+    duck, spark_json = both([str(log)], config=str(versions / "v2.yaml"), config_versions=str(versions),
+                            replay_units=200, since=START + timedelta(2), until=START + timedelta(11))
+    assert_same(duck, spark_json)
+    result, = spark_json["results"]
+    assert 0 < result["moved_with_version_units"] < moved and result["multi_arm_units"] == 0
+    assert result["days"][0]["day"] == (START + timedelta(2)).isoformat()
+    assert result["days"][-1]["day"] == (START + timedelta(11)).isoformat()
+
+
+def test_a_fault_in_one_segment_and_an_unnamed_experiment_alike(spark, tmp_path):
+    """A segment-only fault (scope, onset, localisation) on a log with no experiment column."""
+    path = daily_log(tmp_path, broken=country_drop)
+    plain = write_parquet(tmp_path / "plain.parquet",
+                          [{k: v for k, v in r.items() if k not in ("experiment", "layer")}
+                           for r in map(json.loads, path.read_text().splitlines())])
+    duck, spark_json = both([str(plain)], expect=SPLIT, segments=["country"], replay_units=0)
+    assert_same(duck, spark_json)
+    result, = spark_json["results"]
+    assert result["experiment"] == "(unnamed)" and result["srm"] and result["srm_scope"] == "segment"
+    assert result["onset_day"] is not None
