@@ -17,29 +17,29 @@ def segment_sizes(rng: np.random.Generator, segments: int = SEGMENTS) -> np.ndar
     return np.maximum(5, rng.lognormal(np.log(200), 1.2, segments)).astype(np.int64)
 
 
-def audit_pvalues(rows: np.ndarray, shares: tuple[float, float]) -> np.ndarray:
+def audit_pvalues(rows: np.ndarray, shares: tuple[float, ...]) -> np.ndarray:
     """The audit's segment p-values: `split_tests`, which picks the test per segment."""
     return split_tests(rows, list(shares)).p_value
 
 
-def segment_alarms(shares: tuple[float, float], runs: int, threshold: float, seed: int,
+def segment_alarms(shares: tuple[float, ...], runs: int, threshold: float, seed: int,
                    broken_units: int = 0, pvalues_of=audit_pvalues) -> np.ndarray:
     """Per run, whether any Holm-adjusted segment test crosses the threshold; and whether segment 0 does.
 
-    Every run draws clean two-arm counts for SEGMENTS segments. With
-    `broken_units`, segment 0 holds that many units and its second arm
-    loses three quarters of its units. `pvalues_of(rows, shares)` tests the
-    segments (the audit's tests unless a benchmark compares another). Returns
-    an array (runs, 2): any alarm, segment 0 flagged.
+    Every run draws clean counts for SEGMENTS segments, over as many arms as
+    `shares` has. With `broken_units`, segment 0 holds that many units and
+    its last arm loses three quarters of its units. `pvalues_of(rows, shares)`
+    tests the segments (the audit's tests unless a benchmark compares
+    another). Returns an array (runs, 2): any alarm, segment 0 flagged.
     """
     rng = np.random.default_rng(seed)
     sizes = segment_sizes(rng)
-    second = np.array([shares[1]] * len(sizes))
+    design = np.tile(np.asarray(shares, dtype=float), (len(sizes), 1))
     if broken_units:
         sizes[0] = broken_units
-        second[0] = shares[1] * 0.25 / (shares[0] + shares[1] * 0.25)
-    in_second = rng.binomial(sizes, second, size=(runs, len(sizes)))
-    rows = np.stack([sizes - in_second, in_second], axis=-1).reshape(-1, 2)
+        design[0, -1] *= 0.25
+        design[0] /= design[0].sum()
+    rows = rng.multinomial(sizes, design, size=(runs, len(sizes))).reshape(-1, len(shares))
     pvalues = pvalues_of(rows, shares).reshape(runs, len(sizes))
     alarms = np.zeros((runs, 2), dtype=bool)
     # Holm's smallest adjusted p-value is m times the smallest p-value, and the others are no smaller:

@@ -2,6 +2,7 @@
 
 import json
 import re
+from datetime import date, timedelta
 import shutil
 import subprocess
 
@@ -18,6 +19,19 @@ def test_text_report_lists_the_mismatch_first_with_its_cause(demo):
     assert first.startswith("MISMATCH  lesson-flow / shorter-lessons")
     assert "localised to country=BR" in first and "exposures of 'short'" in first
     assert "malformed records (left out): " in text
+
+
+def test_the_demo_fault_is_dated_on_the_day_it_was_planted(demo):
+    """The demo plants its fault from `logs.fault["since"]`; the onset (in the localised segment, where the fault
+    is) must be that day, within one day, and the crossing day comes no earlier."""
+    logs, result = demo
+    faulty = result.results[0]
+    planted = date.fromisoformat(logs.fault["since"])
+    onset_day, (low, high), where = faulty.break_estimate()
+    assert abs(onset_day - planted) <= timedelta(1) and low <= onset_day <= high
+    assert where is not None and "country=BR" in where
+    assert faulty.first_srm_day is not None and faulty.first_srm_day >= onset_day
+    assert f"on {onset_day.isoformat()}" in srm_text(result)
 
 
 def test_json_keeps_the_contract_types(demo):
@@ -52,6 +66,8 @@ def test_html_renders_in_headless_chromium(demo, tmp_path):
     assert len(sections) == len(result.results) and sections[0] == " srm"
     assert dom.count("<svg") >= 2 * len(result.results)
     assert "first below the threshold on <b>" in dom
+    onset_day = result.results[0].break_estimate()[0]
+    assert f"on <b>{onset_day.isoformat()}</b>" in dom and dom.count('class="onset"') == 1  # only the mismatch
     assert dom.count('class="bad day"') >= 1
     subprocess.run([CHROMIUM, *flags, "--window-size=1200,900", f"--screenshot={shot}", page.as_uri()],
                    capture_output=True, timeout=90, check=True)

@@ -24,17 +24,26 @@ layers:
           - {{name: right, weight: {right}, params: {{size: 2}}}}
 """
 
+ROLLOUT = CONFIG.replace("        status: running\n", "        status: running\n        rollout: right\n")
+
+
+def write_versions(tmp_path, template: str = CONFIG) -> list:
+    """The directory `versions` with v1 (90/10) and v2 (75/25) of `template`; returns the two configs."""
+    versions = tmp_path / "versions"
+    versions.mkdir()
+    configs = []
+    for name, (left, right) in (("v1", (90, 10)), ("v2", (75, 25))):
+        path = versions / f"{name}.yaml"
+        path.write_text(template.format(left=left, right=right))
+        configs.append(load_config(path))
+    return configs
+
 
 def ramp(tmp_path, drop_from: int | None = None):
     """Two config versions (90/10 for a week, then 75/25) and logs that follow them; `drop_from` loses 30 % of
     'right''s new units from that day on. Returns the versions directory, the latest config, the log."""
     versions = tmp_path / "versions"
-    versions.mkdir()
-    ids = []
-    for name, (left, right) in (("v1", (90, 10)), ("v2", (75, 25))):
-        path = versions / f"{name}.yaml"
-        path.write_text(CONFIG.format(left=left, right=right))
-        ids.append(load_config(path).version)
+    ids = [config.version for config in write_versions(tmp_path)]
     rng = random.Random(4)
     records = []
     for day in range(14):
@@ -126,20 +135,12 @@ def test_an_expected_split_needs_no_experiment_column_on_a_log_of_one_experiment
     assert without.exit_code == 2 and "experiment" in without.stderr
 
 
-ROLLOUT = CONFIG.replace("        status: running\n", "        status: running\n        rollout: right\n")
-
-
 def returning_ramp(tmp_path):
     """A rollout ramped from 10 % to 25 % after a week, with half the units returning after the ramp: the SDK gives
     each record its arm under the version then in force, and one unit ('U-switch') is logged in two arms under one
     version. Returns the versions directory, the log and how many units the ramp moved."""
     versions = tmp_path / "versions"
-    versions.mkdir()
-    assigners = []
-    for name, (left, right) in (("v1", (90, 10)), ("v2", (75, 25))):
-        path = versions / f"{name}.yaml"
-        path.write_text(ROLLOUT.format(left=left, right=right))
-        assigners.append(Assigner(load_config(path)))
+    assigners = [Assigner(config) for config in write_versions(tmp_path, ROLLOUT)]
     records, moved = [], 0
     for n in range(6000):
         unit = f"U-{n}"

@@ -60,10 +60,10 @@ def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
     else:
         lines = [f"the overall split is off: p = {p_text(result.p_value)} ({result.test}) < {threshold:g}"]
     where = result.localisation
-    onset_day, interval = (where.onset_day, where.onset_interval) if where is not None and where.onset_day \
-        else (result.onset_day, result.onset_interval)
-    if onset_day is not None and interval is not None:
-        scope = f" in {where.label}" if where is not None and where.onset_day else ""
+    broke = result.break_estimate()
+    if broke is not None:
+        onset_day, interval, label = broke
+        scope = f" in {label}" if label is not None else ""
         span = f" (likely between {interval[0].isoformat()} and {interval[1].isoformat()})" \
             if interval[0] != interval[1] else ""
         lines.append(f"broke{scope} on {onset_day.isoformat()}{span}: the most likely day the arm shares changed")

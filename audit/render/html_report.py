@@ -56,6 +56,8 @@ svg .bad { fill:var(--ember); stroke:var(--ember); }
 svg .thr { stroke:var(--ember); stroke-width:1.5; stroke-dasharray:3 3; }
 svg .curve { fill:none; stroke:var(--ink); stroke-width:2; }
 svg .curve.anytime { stroke:var(--gold); stroke-dasharray:2 4; }
+svg .onset { stroke:var(--ember); stroke-width:2.5; }
+svg .onset-span { fill:var(--ember); opacity:0.12; }
 details { margin:6px 0; }
 summary { cursor:pointer; color:var(--muted); }
 .quiet { color:var(--muted); font-size:13px; }
@@ -127,6 +129,21 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
         parts.append(f'<text x="{left - 6}" y="{y(exponent) + 4:.1f}" text-anchor="end">1e-{exponent}</text>'
                      if exponent else f'<text x="{left - 6}" y="{y(0) + 4:.1f}" text-anchor="end">1</text>')
     parts.append(f'<line class="thr" x1="{left}" y1="{y(limit):.1f}" x2="{left + plot_w}" y2="{y(limit):.1f}"/>')
+    broke = result.break_estimate() if result.srm else None
+    if broke is not None:
+        onset_day, (low, high), label = broke
+        index = {d.day: i for i, d in enumerate(days)}
+        if onset_day in index:
+            # the days the onset interval spans (days without new units have no point; the nearest ones stand in)
+            first = min((i for d, i in index.items() if d >= low), default=index[onset_day])
+            last = max((i for d, i in index.items() if d <= high), default=index[onset_day])
+            where = f" in {escape(label)}" if label is not None else ""
+            parts.append(f'<rect class="onset-span" x="{x(first) - step / 2:.1f}" y="{top}" '
+                         f'width="{(last - first + 1) * step:.1f}" height="{plot_h}"/>')
+            parts.append(f'<line class="onset" x1="{x(index[onset_day]):.1f}" y1="{top}" '
+                         f'x2="{x(index[onset_day]):.1f}" y2="{top + plot_h}"><title>broke{where} on '
+                         f'{onset_day.isoformat()} (likely between {low.isoformat()} and {high.isoformat()})'
+                         f'</title></line>')
     parts.append(f'<text x="{left + plot_w}" y="{y(limit) - 5:.1f}" text-anchor="end">threshold {threshold:g}</text>')
     anytime_points = " ".join(f"{x(i):.1f},{y(h):.1f}" for i, h in enumerate(anytime))
     parts.append(f'<polyline class="curve anytime" points="{anytime_points}"><title>anytime-valid p-value, '
@@ -142,8 +159,10 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
             parts.append(f'<text x="{x(i):.1f}" y="{top + plot_h + 16}" text-anchor="middle">'
                          f'{day.day.strftime("%m-%d")}</text>')
     parts.append("</svg>")
-    first = (f"; first below the threshold on <b>{result.first_srm_day.isoformat()}</b>"
-             if result.first_srm_day else "")
+    first = (f"; solid bar: broke{f' in {escape(broke[2])}' if broke[2] is not None else ''} on "
+             f"<b>{broke[0].isoformat()}</b> (shaded: likely days)" if broke is not None else "")
+    first += (f"; first below the threshold on <b>{result.first_srm_day.isoformat()}</b>"
+              if result.first_srm_day else "")
     first += ("; dotted: the anytime-valid test, safe to read daily"
               + (f", below the threshold on <b>{result.first_sequential_srm_day.isoformat()}</b>"
                  if result.first_sequential_srm_day else ""))

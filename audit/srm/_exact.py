@@ -230,9 +230,9 @@ def _one_design_tests(counts: np.ndarray, shares: np.ndarray) -> SplitTests:
         names[large] = "pearson-chi-square"
         p_values[large] = stats.chi2.sf(statistic[large], arms - 1)
         outcomes = {total: math.comb(total + arms - 1, arms - 1) for total in np.unique(n).tolist()}
-        for row in np.flatnonzero([outcomes[total] <= MULTINOMIAL_OUTCOMES for total in n.tolist()] & tested):
-            names[row] = "exact-multinomial"
-            p_values[row] = _exact_multinomial_p_value(counts[row], shares)
+        rows = np.flatnonzero([outcomes[total] <= MULTINOMIAL_OUTCOMES for total in n.tolist()] & tested)
+        names[rows] = "exact-multinomial"
+        p_values[rows] = _exact_multinomial_p_values(counts[rows], shares)
     names[~tested] = "none"
     p_values[~tested] = 1.0
     return SplitTests(names, p_values, statistic, np.where(tested, arms - 1, 0), np.full(size, math.nan),
@@ -339,11 +339,22 @@ def _multinomial_logpmf(rows: np.ndarray, shares: np.ndarray) -> np.ndarray:
     return special.gammaln(n + 1) + (special.xlogy(rows, shares) - special.gammaln(rows + 1)).sum(axis=1)
 
 
-def _exact_multinomial_p_value(observed: np.ndarray, shares: np.ndarray) -> float:
-    outcomes = compositions(int(observed.sum()), len(observed))
-    logpmf = _multinomial_logpmf(outcomes, shares)
-    seen = _multinomial_logpmf(observed[None, :], shares)[0]
-    return float(min(1.0, np.exp(logpmf[logpmf <= seen + math.log(_TIES)]).sum()))
+def _exact_multinomial_p_values(observed: np.ndarray, shares: np.ndarray) -> np.ndarray:
+    """Per row of counts, the probability of every outcome with its total no more likely than the row's.
+
+    The outcomes of each distinct total are enumerated once and their
+    probabilities sorted; each row's p-value is then a prefix sum of them.
+    """
+    p_values = np.ones(len(observed))
+    totals = observed.sum(axis=1)
+    for total in np.unique(totals).tolist():
+        rows = np.flatnonzero(totals == total)
+        logpmf = np.sort(_multinomial_logpmf(compositions(total, observed.shape[1]), shares))
+        running = np.cumsum(np.exp(logpmf))
+        seen = _multinomial_logpmf(observed[rows], shares)
+        index = np.searchsorted(logpmf, seen + math.log(_TIES), side="right")
+        p_values[rows] = np.minimum(1.0, np.where(index > 0, running[np.maximum(index - 1, 0)], 0.0))
+    return p_values
 
 
 def _monte_carlo_p_value(counts: np.ndarray, shares: np.ndarray, statistic: float, seed: int) -> tuple[float, float]:

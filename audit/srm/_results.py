@@ -234,6 +234,18 @@ class ExperimentResult:
     def replay_mismatch_share(self) -> float | None:
         return _share(self.replay_mismatched, self.replay_checked)
 
+    def break_estimate(self) -> tuple[date, tuple[date, date], str | None] | None:
+        """The day the split broke, its interval, and the segment dated (None: the whole experiment).
+
+        The segment where the mismatch is localised, when it was dated there; else the experiment's own onset.
+        """
+        where = self.localisation
+        if where is not None and where.onset_day is not None and where.onset_interval is not None:
+            return where.onset_day, where.onset_interval, where.label
+        if self.onset_day is not None and self.onset_interval is not None:
+            return self.onset_day, self.onset_interval, None
+        return None
+
     @property
     def arm_names(self) -> tuple[str, ...]:
         return tuple(a.arm for a in self.arms)
