@@ -135,11 +135,11 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
         index = {d.day: i for i, d in enumerate(days)}
         if onset_day in index:
             # the days the onset interval spans (days without new units have no point; the nearest ones stand in)
-            first = min((i for d, i in index.items() if d >= low), default=index[onset_day])
-            last = max((i for d, i in index.items() if d <= high), default=index[onset_day])
+            span_from = min((i for d, i in index.items() if d >= low), default=index[onset_day])
+            span_to = max((i for d, i in index.items() if d <= high), default=index[onset_day])
             where = f" in {escape(label)}" if label is not None else ""
-            parts.append(f'<rect class="onset-span" x="{x(first) - step / 2:.1f}" y="{top}" '
-                         f'width="{(last - first + 1) * step:.1f}" height="{plot_h}"/>')
+            parts.append(f'<rect class="onset-span" x="{x(span_from) - step / 2:.1f}" y="{top}" '
+                         f'width="{(span_to - span_from + 1) * step:.1f}" height="{plot_h}"/>')
             parts.append(f'<line class="onset" x1="{x(index[onset_day]):.1f}" y1="{top}" '
                          f'x2="{x(index[onset_day]):.1f}" y2="{top + plot_h}"><title>broke{where} on '
                          f'{onset_day.isoformat()} (likely between {low.isoformat()} and {high.isoformat()})'
