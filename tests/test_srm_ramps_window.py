@@ -89,6 +89,8 @@ def test_a_window_audits_only_its_days(sortition, tmp_path):
     assert got.exit_code == 1 and json.loads(got.stdout)["results"][0]["days"][0]["day"] == "2026-11-11"
     bad = sortition("srm", log, "--expect", "50,50", "--since", "yesterday", "--quiet")
     assert bad.exit_code == 2 and "--since" in bad.stderr
+    empty = sortition("srm", log, "--expect", "50,50", "--since", "2027-01-01")
+    assert empty.exit_code == 0 and "no usable record is dated within 2027-01-01" in empty.stdout
 
 
 def test_a_unit_is_taken_at_its_first_exposure_within_the_window(tmp_path):

@@ -76,6 +76,9 @@ def test_units_in_a_closed_arm_are_a_mismatch_with_their_own_cause(sortition, tm
     result, = json.loads(got.stdout)["results"]
     assert result["srm"] is True and result["p_value"] == 0 and result["closed_arm_units"] > 800
     assert result["causes"][0]["kind"] == "closed_arm"
+    text = sortition("srm", log, "--expect", "left=50,right=50,old=0").stdout
+    assert "units are in 'old', closed by the design (weight 0)" in text
+    assert "nan" not in text and "—" in text  # the closed arm has no observed/expected ratio
 
 
 def test_heavy_tailed_records_per_unit_do_not_name_duplicate_logging(tmp_path):

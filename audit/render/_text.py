@@ -7,6 +7,7 @@ that none can move the cursor, retitle the window or clear the screen.
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Iterator
 
 from bucketing import BUCKETS, Problem
@@ -37,6 +38,11 @@ def p_text(value: float) -> str:
     return f"{value:.2g}" if value >= 1e-300 else "<1e-300"
 
 
+def ratio_text(value: float) -> str:
+    """Observed over expected units; an arm the design closes has no ratio."""
+    return "—" if math.isnan(value) else f"{value:.3f}"
+
+
 def _table(header: list[str], rows: list[list[str]], indent: str = "    ") -> list[str]:
     widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(len(header))]
     aligned = lambda row: indent + "  ".join(  # noqa: E731
@@ -54,6 +60,10 @@ def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
             else f"p = {p_text(worst.p_value)} ({worst.test})"
         lines = [f"the overall split looks fine (p = {p_text(result.p_value)}), but segment {worst.label} does not: "
                  f"{tested}, {p_text(worst.p_adjusted)} after Holm over {len(result.segments)} segments"]
+    elif result.closed_arm_units:
+        closed = ", ".join(repr(a.arm) for a in result.arms if a.units and a.expected_share == 0)
+        lines = [f"{result.closed_arm_units:,} units are in {closed}, closed by the design (weight 0): "
+                 f"impossible under it, whatever the open arms show (p = 0)"]
     elif result.verdict == "anytime":
         lines = [f"the overall split is off on the anytime-valid test: p = {p_text(result.sequential_p_value)} "
                  f"< {threshold:g}"]
@@ -101,7 +111,7 @@ def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
         return lines + facts + [f"    note: {c.message}" for c in result.causes]
     lines += [f"    {line}" for line in verdict_lines(result, threshold)]
     rows = [[a.arm, f"{a.units:,}", f"{a.observed_share:.2%}", f"{a.expected_share:.2%}",
-             f"{a.ratio:.3f}", f"{a.excess_units:+,.0f}", f"{a.records:,}", f"{a.records_per_unit:.2f}"]
+             ratio_text(a.ratio), f"{a.excess_units:+,.0f}", f"{a.records:,}", f"{a.records_per_unit:.2f}"]
             for a in result.arms]
     lines += _table(["arm", "units", "observed", "expected", "ratio", "excess", "records", "per unit"], rows)
     lines += facts

@@ -11,7 +11,7 @@ import math
 from html import escape
 
 from ..srm import AuditResult, ExperimentResult, share_interval
-from ._text import p_text, repeats_line, verdict_lines
+from ._text import p_text, ratio_text, repeats_line, verdict_lines
 
 CHART_SEGMENTS = 12
 
@@ -174,7 +174,7 @@ def _arms_table(result: ExperimentResult) -> str:
     for a in result.arms:
         off = ' class="off"' if result.srm and a.excess_units < 0 else ""
         rows.append(f"<tr><td>{escape(a.arm)}</td><td>{a.units:,}</td><td>{a.observed_share:.2%}</td>"
-                    f"<td>{a.expected_share:.2%}</td><td>{a.ratio:.3f}</td><td{off}>{a.excess_units:+,.0f}</td>"
+                    f"<td>{a.expected_share:.2%}</td><td>{ratio_text(a.ratio)}</td><td{off}>{a.excess_units:+,.0f}</td>"
                     f"<td>{a.records:,}</td><td>{a.records_per_unit:.2f}</td><td>{a.duplicate_records:,}</td></tr>")
     return ("<table><tr><th>arm</th><th>units</th><th>observed</th><th>design</th><th>ratio</th>"
             "<th>units over (+) or short (−)</th><th>records</th><th>per unit</th><th>repeated records</th></tr>"

@@ -167,6 +167,10 @@ def _audit(tables: UnitTables, plan: _Plan) -> AuditResult:
                                      if r.problem is None and r.experiment is not None and r.arm is not None],
                                     plan.expect, plan.config)
     census = _sort_census(rows, designs)
+    since, until = plan.window
+    if (since or until) and census.records == sum(census.problems.values()):
+        plan.notes.append(f"no usable record is dated within {since or 'the first day'} to {until or 'the last day'} "
+                          f"(--since/--until): nothing to audit there")
     plan.notes += _near_miss_notes(census.unknown, designs)
     if any(r.epoch_times for r in rows):
         plan.notes += tables.epoch_notes()
