@@ -63,6 +63,15 @@ def test_exact_repeats_are_evidence_on_their_own():
     assert evidence.repeat_shares[1] == pytest.approx(40 / 1100)
 
 
+def test_repeats_every_arm_shares_alike_are_not_named():
+    # A client retrying everywhere: 4 % exact repeats in both arms change neither arm's distinct units.
+    values, table = [1, 2], [[900, 100], [900, 100]]
+    evidence = duplicate_logging_evidence(values, table, [1100, 1100], [44, 40], 0.0005)
+    assert not evidence.found and evidence.repeat_shares == pytest.approx((0.04, 40 / 1100))
+    lopsided = duplicate_logging_evidence(values, table, [1100, 1100], [10, 40], 0.0005)
+    assert lopsided.found and lopsided.arm == 1 and lopsided.basis == "exact_repeats"
+
+
 def test_a_significant_but_immaterial_difference_is_not_named():
     # Many units, records per unit 1 % apart: significant, but under the 5 % materiality bar.
     values, table = [1, 2], [[800_000, 200_000], [792_000, 208_000]]

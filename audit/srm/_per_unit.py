@@ -18,6 +18,7 @@ from scipy import stats
 
 MATERIAL_RATIO = 1.05  # records per unit must differ by more than 5 % between arms to be named (common practice, no source)
 REPEAT_SHARE = 0.01  # exact repeats above 1 % of an arm's records are named as duplicate logging (common practice, no source)
+REPEAT_RATIO = 2.0  # ... when that arm repeats at least twice the share of the arm that repeats least (no source)
 
 
 class RankTest(NamedTuple):
@@ -74,7 +75,8 @@ def duplicate_logging_evidence(values: Sequence[int], table: Sequence[Sequence[i
                                repeats: Sequence[int], threshold: float) -> DuplicateEvidence:
     """Name duplicate logging only on evidence valid for clustered records.
 
-    Either an arm's exact repeats reach REPEAT_SHARE of its records, or the
+    Either an arm's exact repeats reach REPEAT_SHARE of its records and
+    REPEAT_RATIO times the share of the arm that repeats least, or the
     rank test of records per unit crosses the threshold and the arm that
     ranks highest logs at least MATERIAL_RATIO times the records per unit of
     the lowest. `records` and `repeats` are per arm; `table` as in
@@ -85,7 +87,11 @@ def duplicate_logging_evidence(values: Sequence[int], table: Sequence[Sequence[i
     repeat_shares = tuple(float(d / r) if r else 0.0 for d, r in zip(repeats, records))
     test = records_rank_test(values, table)
     heaviest_repeats = int(np.argmax(repeat_shares))
-    if repeat_shares[heaviest_repeats] >= REPEAT_SHARE:
+    lightest_repeats = min((share for share, u in zip(repeat_shares, units) if u), default=0.0)
+    # Repeats every arm shares alike (a client's retries everywhere) change no arm's count of distinct units:
+    # they are listed, not named as the cause.
+    if repeat_shares[heaviest_repeats] >= REPEAT_SHARE and \
+            repeat_shares[heaviest_repeats] >= REPEAT_RATIO * lightest_repeats:
         return DuplicateEvidence(True, heaviest_repeats, "exact_repeats", test, per_unit, repeat_shares)
     logged = [i for i, u in enumerate(units) if u]
     if test.p_value < threshold and len(logged) >= 2:
