@@ -60,8 +60,11 @@ def ramp(tmp_path, drop_from: int | None = None):
 
 def test_a_healthy_ramp_is_balanced_when_each_unit_is_judged_by_its_version(tmp_path):
     versions, latest, log = ramp(tmp_path)
-    against_latest, = audit_logs(log, config=latest, replay_units=0).results
+    audited = audit_logs(log, config=latest, replay_units=0)
+    against_latest, = audited.results
     assert against_latest.srm and against_latest.p_value < 1e-100  # what the audit said before
+    hint, = [note for note in audited.notes if "--config-versions" in note]  # ... and what it now suggests
+    assert "exp-a" in hint and "1 other config version" in hint
     result, = audit_logs(log, config=latest, config_versions=versions, replay_units=0).results
     assert not result.srm and result.p_value > 0.001
     assert result.test in ("mixture-chi-square", "exact-poisson-binomial")

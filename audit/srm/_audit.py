@@ -342,11 +342,27 @@ def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, out
         first_sequential_srm_day=dated.days[sequential].day if sequential is not None else None,
         without_worst=without_worst(splits, overall, segments, plan.threshold),
         localisation=localise(splits, start, _names(plan), plan.threshold) if start is not None else None)
+    if result.srm:
+        plan.notes += _versions_hint(tables, plan, index, design)
     if plan.replay_configs:
         result = _with_replay(tables, plan, index, design, result, segments)
     else:
         result = replace(result, segments=tuple(segments))
     return replace(result, causes=diagnose(result, plan.threshold))
+
+
+def _versions_hint(tables: UnitTables, plan: _Plan, index: int, design: Design) -> list[str]:
+    """For a mismatch audited against one config: whether its records name other config versions (a ramp?)."""
+    if plan.expect is not None or plan.config is None or len(plan.replay_configs) > 1:
+        return []
+    others = sorted(version for (version,) in tables.grouped_units(index, (CONFIG_VERSION,))
+                    if version is not None and version != plan.config.version)
+    if not others:
+        return []
+    return [f"{design.layer} / {design.experiment}: its units were first exposed under {len(others)} other config "
+            f"version(s) than the one audited ({', '.join(others[:3])}{', …' if len(others) > 3 else ''}); if the "
+            f"weights changed (a ramp), give those versions with --config-versions DIR so that each unit is judged "
+            f"against the design in force at its first exposure"]
 
 
 def _names(plan: _Plan) -> list[str]:
