@@ -41,7 +41,8 @@ DATA_KEYED = {
     "diff": set(),
     "layout": set(),
     "schema": set(),  # only its top level and its definitions' names: below them it is JSON Schema's own vocabulary
-    "srm": {"malformed.counts", "results[].days[].new_units", "results[].segments[].by",
+    "srm": {"malformed.counts", "results[].days[].new_units", "results[].localised.days[].new_units",
+            "results[].segments[].by",
             "results[].segments[].arm_units", "results[].without_worst_segment.left_out",
             "results[].localised.by", "results[].localised.arm_units", "results[].causes[].segment"},
 }

@@ -50,6 +50,13 @@ def test_a_mismatch_in_one_segment_is_a_mismatch_with_its_scope_segment_and_onse
     text = sortition("srm", log, "--expect", "50,50", "--by", "country", "--quiet")
     assert text.exit_code == 1
     assert "MISMATCH" in text.stdout and "segment country=BB" in text.stdout and "broke in country=BB" in text.stdout
+    localised = result["localised"]
+    assert localised["days"] and localised["days"][-1]["cumulative_p_value"] < 0.0005  # the segment's own days
+    page = tmp_path / "report.html"
+    html = sortition("srm", log, "--expect", "50,50", "--by", "country", "--format", "html", "--out", page, "--quiet")
+    assert html.exit_code == 1
+    # the day chart follows the segment where the mismatch is, not the balanced whole
+    assert "in <b>country=BB</b>, where the mismatch is" in page.read_text() and 'class="onset"' in page.read_text()
 
 
 def test_the_experiment_onset_and_the_crossing_day_are_told_apart(tmp_path):

@@ -73,7 +73,8 @@ def _share_chart(result: ExperimentResult, arm_index: int, threshold: float) -> 
         low, high = share_interval(loc.arm_units[arm_index], loc.units)
         rows.append(("▶ " + loc.label, loc.arm_units[arm_index] / loc.units if loc.units else 0, low, high,
                      loc.p_value < threshold, loc.units))
-    for segment in result.segments[:CHART_SEGMENTS]:
+    localised = dict(result.localisation.by) if result.localisation is not None else None
+    for segment in [s for s in result.segments if dict(s.by) != localised][:CHART_SEGMENTS]:
         count = segment.arm_units[arm_index]
         low, high = share_interval(count, segment.units)
         rows.append((segment.label, count / segment.units if segment.units else 0, low, high, segment.srm,
@@ -107,8 +108,12 @@ def _share_chart(result: ExperimentResult, arm_index: int, threshold: float) -> 
 
 
 def _day_chart(result: ExperimentResult, threshold: float) -> str:
-    """The cumulative test's p-value by day, as -log10(p), against the threshold."""
-    days = result.days
+    """The cumulative test's p-value by day, as -log10(p), against the threshold: the experiment's, or, for a
+    mismatch seen only in a segment, that of the segment where it is localised."""
+    where = result.localisation
+    segment = result.srm_scope == "segment" and where is not None and bool(where.days)
+    days = where.days if segment and where is not None else result.days
+    crossing = where.first_srm_day if segment and where is not None else result.first_srm_day
     if not days:
         return ""
     heights = [-math.log10(max(d.cumulative_p, 1e-300)) for d in days]
@@ -137,11 +142,11 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
             # the days the onset interval spans (days without new units have no point; the nearest ones stand in)
             span_from = min((i for d, i in index.items() if d >= low), default=index[onset_day])
             span_to = max((i for d, i in index.items() if d <= high), default=index[onset_day])
-            where = f" in {escape(label)}" if label is not None else ""
+            place = f" in {escape(label)}" if label is not None else ""
             parts.append(f'<rect class="onset-span" x="{x(span_from) - step / 2:.1f}" y="{top}" '
                          f'width="{(span_to - span_from + 1) * step:.1f}" height="{plot_h}"/>')
             parts.append(f'<line class="onset" x1="{x(index[onset_day]):.1f}" y1="{top}" '
-                         f'x2="{x(index[onset_day]):.1f}" y2="{top + plot_h}"><title>broke{where} on '
+                         f'x2="{x(index[onset_day]):.1f}" y2="{top + plot_h}"><title>broke{place} on '
                          f'{onset_day.isoformat()} (likely between {low.isoformat()} and {high.isoformat()})'
                          f'</title></line>')
     parts.append(f'<text x="{left + plot_w}" y="{y(limit) - 5:.1f}" text-anchor="end">threshold {threshold:g}</text>')
@@ -159,13 +164,13 @@ def _day_chart(result: ExperimentResult, threshold: float) -> str:
             parts.append(f'<text x="{x(i):.1f}" y="{top + plot_h + 16}" text-anchor="middle">'
                          f'{day.day.strftime("%m-%d")}</text>')
     parts.append("</svg>")
-    first = (f"; solid bar: broke{f' in {escape(broke[2])}' if broke[2] is not None else ''} on "
-             f"<b>{broke[0].isoformat()}</b> (shaded: likely days)" if broke is not None else "")
-    first += (f"; first below the threshold on <b>{result.first_srm_day.isoformat()}</b>"
-              if result.first_srm_day else "")
+    anytime_crossing = next((d.day for d in days if d.sequential_p < threshold), None)
+    first = (f" in <b>{escape(where.label)}</b>, where the mismatch is" if segment and where is not None else "")
+    first += (f"; solid bar: broke{f' in {escape(broke[2])}' if broke[2] is not None else ''} on "
+              f"<b>{broke[0].isoformat()}</b> (shaded: likely days)" if broke is not None else "")
+    first += (f"; first below the threshold on <b>{crossing.isoformat()}</b>" if crossing else "")
     first += ("; dotted: the anytime-valid test, safe to read daily"
-              + (f", below the threshold on <b>{result.first_sequential_srm_day.isoformat()}</b>"
-                 if result.first_sequential_srm_day else ""))
+              + (f", below the threshold on <b>{anytime_crossing.isoformat()}</b>" if anytime_crossing else ""))
     return f'<figure><figcaption>cumulative p-value by day (log scale){first}</figcaption>{"".join(parts)}</figure>'
 
 
@@ -263,5 +268,7 @@ def srm_html(result: AuditResult) -> str:
             "<p>Does each experiment's split of units match its design? Where not: which segment, since which day, why.</p>"
             f'<div class="tally">{"".join(tally)}</div></header>'
             f"<main>{body}{_data_problems(result)}{notes}"
-            "<p class=\"quiet\">Pearson chi-square goodness of fit on distinct units at first exposure; units seen "
-            "in two arms and forced units are left out. Segment p-values are Holm-adjusted.</p></main></body></html>\n")
+            "<p class=\"quiet\">Each split is tested on distinct units at their first exposure: exactly below "
+            "1,000 expected units per arm, by Pearson's chi-square above (the JSON's <code>test</code> says which). "
+            "Units seen in two arms and forced units are left out. Segment p-values are Holm-adjusted.</p>"
+            "</main></body></html>\n")

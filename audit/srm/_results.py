@@ -157,6 +157,7 @@ class Localisation:
     first_srm_day: date | None  # the first day the segment's cumulative test crossed the threshold
     onset_day: date | None = None  # the estimated first broken day of the segment
     onset_interval: tuple[date, date] | None = None
+    days: tuple[DayResult, ...] = ()  # the segment's days, as the experiment's
 
     @property
     def label(self) -> str:
@@ -166,7 +167,7 @@ class Localisation:
         return {"by": dict(self.by), "units": self.units, "arm_units": dict(zip(arms, self.arm_units)),
                 "p_value": self.p_value, "p_value_rest": self.p_rest, "srm_rest": self.srm_rest,
                 "first_srm_day": _day(self.first_srm_day), "onset_day": _day(self.onset_day),
-                "onset_interval": _interval(self.onset_interval)}
+                "onset_interval": _interval(self.onset_interval), "days": [d.to_dict(arms) for d in self.days]}
 
 
 @dataclass(frozen=True)

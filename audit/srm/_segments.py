@@ -157,7 +157,8 @@ def localise(splits: Splits, start: SegmentResult, names: Sequence[str], thresho
     dated = timeline(splits, threshold, within=chosen)
     arms = arm_totals(current)
     return Localisation(chosen, sum(arms), arms, split_test(current, splits.shares).p_value, rest.p_value,
-                        rest.p_value < threshold, dated.first_crossing, dated.onset_day, dated.onset_interval)
+                        rest.p_value < threshold, dated.first_crossing, dated.onset_day, dated.onset_interval,
+                        tuple(dated.days))
 
 
 def mismatch_start(segments: Sequence[SegmentResult], scope: str | None) -> SegmentResult | None:
