@@ -329,11 +329,13 @@ def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, out
         return result
     anytime = plan.verdict == ANYTIME
     segments = test_segments(splits, overall, _segment_counts(splits, plan), plan.threshold, anytime)
-    dated = timeline(splits, plan.threshold)
+    dated = timeline(splits, plan.threshold, dated=False)  # the onset only for a mismatch: see below
     overall_off = dated.days[-1].sequential_p < plan.threshold if anytime else result.srm
     scope = "overall" if overall_off else "segment" if any(s.srm for s in segments) else None
     sequential = _stats.first_crossing([d.sequential_p for d in dated.days], plan.threshold)
     start = mismatch_start(segments, scope)
+    if scope is not None:
+        dated = timeline(splits, plan.threshold)
     result = replace(
         result, srm=scope is not None, srm_scope=scope, verdict=plan.verdict, days=tuple(dated.days),
         first_srm_day=dated.first_crossing if scope else None,

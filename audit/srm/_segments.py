@@ -105,8 +105,8 @@ class Timeline(NamedTuple):
     first_crossing: date | None  # the first day the cumulative test crossed the threshold
 
 
-def timeline(splits: Splits, threshold: float, within: Segment | None = None) -> Timeline:
-    """Each day with new units: its test, the cumulative one, the anytime-valid one.
+def timeline(splits: Splits, threshold: float, within: Segment | None = None, dated: bool = True) -> Timeline:
+    """Each day with new units: its test, the cumulative one, the anytime-valid one; with `dated`, the onset.
 
     The onset is the maximum-likelihood change point of the arm shares over
     the days' new units (`_onset`); the crossing day is when the cumulative
@@ -119,17 +119,17 @@ def timeline(splits: Splits, threshold: float, within: Segment | None = None) ->
     # dated years away must not cost a row for every day between.
     dates = sorted(by_day)
     daily = np.array([by_day[d] for d in dates])
-    single = split_tests(daily, splits.shares)
-    cumulative = _stats.cumulative_tests(daily, splits.shares)
+    tests = split_tests(np.concatenate([daily, np.cumsum(daily, axis=0)]), splits.shares)  # one batch: days, then totals
+    single, cumulative = tests.p_value[:len(dates)], tests.p_value[len(dates):]
     sequential = sequential_p_values(daily, splits.shares)
-    days = [DayResult(d, arm_totals(counts), float(p), total.p_value, anytime)
-            for d, counts, p, total, anytime in zip(dates, daily, single.p_value, cumulative, sequential)]
+    days = [DayResult(d, arm_totals(counts), float(p), float(total), anytime)
+            for d, counts, p, total, anytime in zip(dates, daily, single, cumulative, sequential)]
     crossing = _stats.first_crossing([d.cumulative_p for d in days], threshold)
-    found = onset(daily, splits.shares)
+    first_crossing = dates[crossing] if crossing is not None else None
+    found = onset(daily, splits.shares) if dated else None
     if found is None:
-        return Timeline(days, None, None, dates[crossing] if crossing is not None else None)
-    return Timeline(days, dates[found.day], (dates[found.low], dates[found.high]),
-                    dates[crossing] if crossing is not None else None)
+        return Timeline(days, None, None, first_crossing)
+    return Timeline(days, dates[found.day], (dates[found.low], dates[found.high]), first_crossing)
 
 
 def localise(splits: Splits, start: SegmentResult, names: Sequence[str], threshold: float) -> Localisation:
