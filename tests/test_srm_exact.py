@@ -1,12 +1,17 @@
 """The choice and running of split tests: exact for small counts, closed arms, ramps, checked against scipy."""
 
 import itertools
+from dataclasses import replace
 
 import numpy as np
 import pytest
 from scipy import stats
 
+from audit import audit_logs
+from audit.render import srm_text
+from audit.render.html_report import srm_html
 from audit.srm import binomial_p_values, split_test, split_tests
+from tests.invented_logs import write_jsonl
 
 
 def test_binomial_p_values_equal_scipy_binomtest():
@@ -209,3 +214,15 @@ def test_shapes_and_shares_are_checked():
 def test_no_units_is_nothing_to_test():
     result = split_test([0, 0, 0], [0.2, 0.3, 0.5])
     assert result.test == "none" and result.p_value == 1.0
+
+
+def test_reports_state_the_monte_carlo_error_bound(tmp_path):
+    """A Monte Carlo p-value is shown with its 99 % bound, in the text and the HTML (the JSON has `mc_error`)."""
+    log = write_jsonl(tmp_path / "log.jsonl", [{"ts": "2026-11-04T09:00:00Z", "unit": f"U-{n}", "experiment": "exp-a",
+                                              "arm": "left" if n % 2 else "right"} for n in range(200)])
+    audited = audit_logs(log, expect=[50, 50])
+    drawn = replace(audited.results[0], test="monte-carlo-mixture", mc_error=0.00031, srm=True, srm_scope="overall",
+                    p_value=0.0002)
+    shown = replace(audited, results=(drawn,))
+    assert "p = 0.0002 (monte-carlo-mixture, 99 % bound +0.00031)" in srm_text(shown)
+    assert "monte-carlo-mixture, 99 % bound +0.00031" in srm_html(shown)

@@ -38,6 +38,11 @@ def p_text(value: float) -> str:
     return f"{value:.2g}" if value >= 1e-300 else "<1e-300"
 
 
+def test_text(test: str, mc_error: float | None) -> str:
+    """Which test gave a p-value; a Monte Carlo one states how far its 99 % upper bound lies above it."""
+    return f"{test}, 99 % bound +{mc_error:.2g}" if mc_error is not None else test
+
+
 def ratio_text(value: float) -> str:
     """Observed over expected units; an arm the design closes has no ratio."""
     return "—" if math.isnan(value) else f"{value:.3f}"
@@ -57,7 +62,7 @@ def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
     if result.srm_scope == "segment":
         worst = min((s for s in result.segments if s.srm), key=lambda s: s.p_adjusted)
         tested = f"anytime-valid p = {p_text(worst.sequential_p_value)}" if worst.sequential_p_value is not None \
-            else f"p = {p_text(worst.p_value)} ({worst.test})"
+            else f"p = {p_text(worst.p_value)} ({test_text(worst.test, worst.mc_error)})"
         lines = [f"the overall split looks fine (p = {p_text(result.p_value)}), but segment {worst.label} does not: "
                  f"{tested}, {p_text(worst.p_adjusted)} after Holm over {len(result.segments)} segments"]
     elif result.closed_arm_units:
@@ -68,7 +73,8 @@ def verdict_lines(result: ExperimentResult, threshold: float) -> list[str]:
         lines = [f"the overall split is off on the anytime-valid test: p = {p_text(result.sequential_p_value)} "
                  f"< {threshold:g}"]
     else:
-        lines = [f"the overall split is off: p = {p_text(result.p_value)} ({result.test}) < {threshold:g}"]
+        lines = [f"the overall split is off: p = {p_text(result.p_value)} ({test_text(result.test, result.mc_error)}) "
+                 f"< {threshold:g}"]
     where = result.localisation
     broke = result.break_estimate()
     if broke is not None:
@@ -104,7 +110,8 @@ def moved_line(result: ExperimentResult) -> str | None:
 def _experiment(result: ExperimentResult, threshold: float) -> list[str]:
     mark = "MISMATCH" if result.srm else "balanced"
     lines = [f"{mark}  {result.layer} / {result.experiment}   {result.units:,} units   "
-             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)} ({result.test})"]
+             f"chi2 = {result.chi2:.1f} ({result.df} df)   p = {p_text(result.p_value)} "
+             f"({test_text(result.test, result.mc_error)})"]
     repeats = repeats_line(result)
     facts = [f"    {line}" for line in (repeats, moved_line(result)) if line]
     if not result.srm:

@@ -11,7 +11,7 @@ import math
 from html import escape
 
 from ..srm import AuditResult, ExperimentResult, share_interval
-from ._text import p_text, ratio_text, repeats_line, verdict_lines
+from ._text import p_text, ratio_text, repeats_line, test_text, verdict_lines
 
 CHART_SEGMENTS = 12
 
@@ -204,7 +204,7 @@ def _segments_table(result: ExperimentResult) -> str:
 def _experiment(result: ExperimentResult, threshold: float) -> str:
     verdict = ("MISMATCH IN A SEGMENT" if result.srm_scope == "segment" else "MISMATCH") if result.srm else "BALANCED"
     facts = [f"{result.units:,} units", f"χ² = {result.chi2:.1f} ({result.df} df)",
-             f"p = {p_text(result.p_value)} ({result.test})"]
+             f"p = {p_text(result.p_value)} ({test_text(result.test, result.mc_error)})"]
     if result.replay_checked:
         facts.append(f"arm replay: {result.replay_mismatch_share:.2%} of {result.replay_checked:,} units differ")
     if result.multi_arm_units:
