@@ -83,7 +83,8 @@ def register(app: typer.Typer) -> None:
         config: Optional[Path] = typer.Option(None, "--config", help="Config file or directory: expected shares, "
                                                                      "date windows, and the arm replay."),
         config_versions: Optional[Path] = typer.Option(None, "--config-versions", help="Directory of past config "
-            "versions (one YAML file or subdirectory each); records are replayed under the version they name."),
+            "versions (one YAML file or subdirectory each); records are replayed under the version they name, and "
+            "each unit is judged against the weights of the version in force at its first exposure (a ramp)."),
         by: Optional[str] = typer.Option(None, "--by", help="Segment attributes, comma-separated; join with + to "
                                                             "test combinations, e.g. country,platform+app_version; "
                                                             "'auto' tests every other column of the logs."),
