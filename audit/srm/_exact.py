@@ -96,7 +96,12 @@ def binomial_p_values(successes, trials, share) -> np.ndarray:
         back[order] = np.cumsum(starts) - 1
     k, n, p = distinct[:, 0].astype(np.int64), distinct[:, 1].astype(np.int64), distinct[:, 2]
     pvalues = np.ones(len(distinct))
-    below, above = k < n * p, k > n * p
+    # An even split (the commonest design) is symmetric: the counts as likely as k are k and n - k, so the
+    # p-value is twice the smaller tail, with no edge to search for.
+    even = (p == 0.5) & (2 * k != n)
+    if even.any():
+        pvalues[even] = 2 * _binomial_cdf(np.minimum(k[even], n[even] - k[even]), n[even], p[even])
+    below, above = (k < n * p) & ~even & (p != 0.5), (k > n * p) & ~even & (p != 0.5)
     if below.any():
         # k below the mean: the first count above the mode no more likely than k (the pmf falls there).
         kb, nb, pb = k[below], n[below], p[below]
