@@ -114,3 +114,12 @@ def test_the_demo_fault_is_dated_on_its_first_day(demo):
     shorter = next(r for r in result.results if r.experiment == "shorter-lessons")
     assert shorter.srm and shorter.localisation is not None
     assert shorter.localisation.onset_day == date(2026, 11, 5)
+
+
+def test_an_experiment_logging_one_arm_needs_named_weights_and_is_then_a_mismatch(sortition, tmp_path):
+    log = write_jsonl(tmp_path / "one-arm.jsonl", [{"ts": "2026-11-04T09:00:00Z", "unit": f"U-{n}", "experiment": "exp-a",
+                                                   "arm": "left"} for n in range(60)])
+    positional = sortition("srm", log, "--expect", "50,50", "--quiet")
+    assert positional.exit_code == 2 and "name the arms" in positional.stderr
+    named = sortition("srm", log, "--expect", "left=50,right=50", "--format", "json", "--quiet")
+    assert named.exit_code == 1 and json.loads(named.stdout)["results"][0]["srm"] is True

@@ -49,7 +49,8 @@ def designs_from_expectation(seen: Mapping[tuple[str, str], Sequence[str]],
             weights = list(expectation)
             if len(names) != len(weights):
                 raise AuditError(f"experiment {experiment!r} has arms {list(names)} in the logs; "
-                                 f"the expected split gives {len(weights)} weights")
+                                 f"the expected split gives {len(weights)} weights: name the arms (e.g. "
+                                 f"--expect control=50,treatment=50), and an arm the logs lack is a mismatch")
         designs.append(Design(layer, experiment, names, tuple(expected_shares(weights))))
     return designs
 
