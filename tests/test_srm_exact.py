@@ -77,7 +77,8 @@ def test_per_arm_test_is_bonferroni_over_scipy_binomtest():
 def test_chi_square_would_exceed_the_holm_level_where_the_exact_test_stays_within_it():
     # Every outcome (246,051) of a clean 98/1/1 segment of 700 units, weighted by scipy.stats.multinomial's
     # pmf: at the per-test level of Holm over 200 segments (0.0005 / 200), Pearson's chi-square (every
-    # expected count >= 5, so Cochran's rule allows it) rejects about 18 times too often; the test that
+    # expected count >= 5, so Cochran's rule allows it: W. G. Cochran, "Some methods for strengthening the
+    # common chi-square tests", Biometrics 1954, from memory) rejects about 18 times too often; the test that
     # runs stays within the level.
     shares, level = np.array([0.98, 0.01, 0.01]), 0.0005 / 200
     outcomes = np.array([(a, b, 700 - a - b) for a in range(701) for b in range(701 - a)])
