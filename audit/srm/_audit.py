@@ -32,7 +32,7 @@ from ._exact import split_test
 from ._per_unit import duplicate_logging_evidence
 from ._replay import replay, replayable, segment_replay
 from ._results import ArmResult, AuditResult, ExperimentResult, SegmentResult, UnknownRecords
-from ._segments import arm_totals, localise, mismatch_start, test_segments, timeline, without_worst
+from ._segments import arm_totals, localise, mismatch_start, test_segments, timeline, with_onset, without_worst
 
 DEFAULT_REPLAY_UNITS = 50_000
 FIXED, ANYTIME = "fixed", "anytime"  # what the verdict rests on: the fixed-horizon tests or the anytime-valid ones
@@ -335,7 +335,7 @@ def _experiment(tables: UnitTables, plan: _Plan, index: int, design: Design, out
     sequential = _stats.first_crossing([d.sequential_p for d in dated.days], plan.threshold)
     start = mismatch_start(segments, scope)
     if scope is not None:
-        dated = timeline(splits, plan.threshold)
+        dated = with_onset(splits, dated)
     result = replace(
         result, srm=scope is not None, srm_scope=scope, verdict=plan.verdict, days=tuple(dated.days),
         first_srm_day=dated.first_crossing if scope else None,

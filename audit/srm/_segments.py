@@ -126,10 +126,24 @@ def timeline(splits: Splits, threshold: float, within: Segment | None = None, da
             for d, counts, p, total, anytime in zip(dates, daily, single, cumulative, sequential)]
     crossing = _stats.first_crossing([d.cumulative_p for d in days], threshold)
     first_crossing = dates[crossing] if crossing is not None else None
-    found = onset(daily, splits.shares) if dated else None
+    onset_day, interval = _onset_of(dates, daily, splits.shares) if dated else (None, None)
+    return Timeline(days, onset_day, interval, first_crossing)
+
+
+def with_onset(splits: Splits, undated: Timeline, within: Segment | None = None) -> Timeline:
+    """`undated` (a timeline made with `dated=False`) with its onset, computed from the same days."""
+    by_day = splits.daily(within)
+    dates = sorted(by_day)
+    onset_day, interval = _onset_of(dates, np.array([by_day[d] for d in dates]), splits.shares) if dates \
+        else (None, None)
+    return undated._replace(onset_day=onset_day, onset_interval=interval)
+
+
+def _onset_of(dates: list[date], daily: np.ndarray, shares: np.ndarray) -> tuple[date | None, tuple[date, date] | None]:
+    found = onset(daily, shares)
     if found is None:
-        return Timeline(days, None, None, first_crossing)
-    return Timeline(days, dates[found.day], (dates[found.low], dates[found.high]), first_crossing)
+        return None, None
+    return dates[found.day], (dates[found.low], dates[found.high])
 
 
 def localise(splits: Splits, start: SegmentResult, names: Sequence[str], threshold: float) -> Localisation:
